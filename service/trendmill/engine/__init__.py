@@ -1,0 +1,1 @@
+"""Pure numerics of trendmill: spec, mergeable moments, solve. Imports nothing else in the project."""

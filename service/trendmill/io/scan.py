@@ -1,0 +1,152 @@
+"""Scan: one partition -> per-group moments, streaming in bounded batches.
+
+Memory per scan is one decoded batch plus the per-group state (groups x d^2); rows
+are never collected. Nulls and NaN in a used column skip the row (counted per
+group in ``skipped``), as do +-inf (counted in ``infinite``); a negative or
+infinite weight is an error naming the column and file.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.dataset as ds
+import pyarrow.fs as pafs
+
+from ..engine.errors import CorruptSource, DataError
+from ..engine.moments import Moments
+from . import _kernel
+from .keys import KeyIndex
+from .plan import ColumnPlan, FitPlan, Partition
+
+__all__ = ["ScanTask", "PartitionMoments", "scan_partition", "scan_tasks", "BATCH_ROWS"]
+
+BATCH_ROWS = 1 << 20
+_LOCAL_FS = pafs.LocalFileSystem()
+
+
+@dataclass(frozen=True, slots=True)
+class ScanTask:
+    """Everything a worker needs to scan one partition (picklable)."""
+
+    partition: Partition
+    schema: pa.Schema
+    columns: tuple[ColumnPlan, ...]
+    by: tuple[str, ...]
+    key_types: tuple[pa.DataType, ...]
+    filter: object
+    weighted: bool
+    form: str
+    use_threads: bool = False
+    batch_rows: int = BATCH_ROWS
+
+
+@dataclass(frozen=True, slots=True)
+class PartitionMoments:
+    partition_id: str
+    keys: pa.Table               # one row per group, in id order
+    moments: Moments
+    skipped: np.ndarray          # (G,) rows skipped for null / NaN
+    infinite: np.ndarray         # (G,) rows skipped for +-inf
+    rows_read: int
+    bytes_read: int
+
+
+def scan_tasks(plan: FitPlan, *, use_threads: bool = False) -> list[ScanTask]:
+    form = "qr" if plan.spec.solver == "qr" else "comoment"
+    return [ScanTask(p, plan.schema, plan.columns, plan.spec.by, plan.key_types, plan.filter,
+                     plan.spec.weight is not None, form, use_threads) for p in plan.partitions]
+
+
+def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan) -> np.ndarray:
+    """Column -> float64 with NaN for nulls, offsets removed in integer arithmetic."""
+    if isinstance(arr, pa.ChunkedArray):
+        arr = arr.combine_chunks()
+    if col.kind == "float":
+        if not pa.types.is_float64(arr.type):
+            arr = arr.cast(pa.float64())
+        return arr.fill_null(np.nan).to_numpy(zero_copy_only=False)
+    if col.kind == "bool":
+        return arr.cast(pa.float64()).fill_null(np.nan).to_numpy(zero_copy_only=False)
+    raw = arr.cast(pa.int64()) if col.kind != "timestamp" else arr.view(pa.int64())
+    ints = raw.fill_null(0).to_numpy(zero_copy_only=False)
+    out = (ints - np.int64(col.origin)).astype(np.float64)
+    if col.per_unit != 1.0:
+        out /= col.per_unit
+    if arr.null_count:
+        out[arr.is_null().to_numpy(zero_copy_only=False)] = np.nan
+    return out
+
+
+class _Growing:
+    """The partition's state arrays, grown by doubling as groups appear."""
+
+    def __init__(self, d: int) -> None:
+        self.cap = 0
+        self.n = np.zeros(0, np.int64)
+        self.w = np.zeros(0)
+        self.mean = np.zeros((0, d))
+        self.cross = np.zeros((0, d, d))
+        self.skipped = np.zeros(0, np.int64)
+        self.infinite = np.zeros(0, np.int64)
+
+    def ensure(self, groups: int) -> None:
+        if groups <= self.cap:
+            return
+        self.cap = max(groups, 2 * self.cap, 1024)
+
+        def grow(a: np.ndarray) -> np.ndarray:
+            new = np.zeros((self.cap,) + a.shape[1:], a.dtype)
+            new[: len(a)] = a
+            return new
+
+        self.n, self.w, self.mean, self.cross, self.skipped, self.infinite = map(
+            grow, (self.n, self.w, self.mean, self.cross, self.skipped, self.infinite))
+
+
+def scan_partition(task: ScanTask) -> PartitionMoments:
+    """Scan one partition into per-group moments (the hot path)."""
+    part = task.partition
+    d = len(task.columns) - (1 if task.weighted else 0)
+    keys = KeyIndex(task.by, task.key_types)
+    state = _Growing(d)
+    state.ensure(1)
+    accumulate = _kernel.accumulate_qr if task.form == "qr" else _kernel.accumulate_comoment
+    names = [c.name for c in task.columns] + [b for b in task.by if b not in {c.name for c in task.columns}]
+    rows = 0
+    try:
+        fragment = ds.ParquetFileFormat().make_fragment(
+            part.path, filesystem=_LOCAL_FS, partition_expression=part.partition_expression,
+            row_groups=part.row_groups)
+        scanner = ds.Scanner.from_fragment(fragment, schema=task.schema, columns=names,
+                                           filter=task.filter, batch_size=task.batch_rows,
+                                           use_threads=task.use_threads)
+        batches = scanner.to_batches()
+        empty_w = np.empty(0)
+        for batch in batches:
+            n = batch.num_rows
+            if n == 0:
+                continue
+            rows += n
+            codes = keys.ids([batch.column(b) for b in task.by], n)
+            state.ensure(keys.size)
+            z = np.empty((d, n))
+            for j, col in enumerate(task.columns[:d]):
+                z[j] = _as_float(batch.column(col.name), col)
+            w = _as_float(batch.column(task.columns[d].name), task.columns[d]) if task.weighted else empty_w
+            bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
+                             state.skipped, state.infinite)
+            if bad:
+                col = task.columns[d].name
+                raise DataError(f"weight: column {col!r} has {bad} negative or infinite values in "
+                                f"{part.path!r}; weights must be finite and >= 0", column=col, path=part.path)
+    except (pa.ArrowException, OSError) as exc:
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise CorruptSource(f"source: cannot read {part.path!r} ({first})", path=part.path) from None
+    g = keys.size
+    m = Moments(state.n[:g].copy(), state.w[:g].copy(), state.mean[:g].copy(), state.cross[:g].copy(), task.form)
+    return PartitionMoments(part.id, keys.keys(), m, state.skipped[:g].copy(), state.infinite[:g].copy(),
+                            rows, part.bytes)
