@@ -42,8 +42,12 @@ def _row_ok(z, w, i, d, use_w):
 
 @njit(cache=True, nogil=True)
 def _batch_means(codes, z, w, use_w, groups, skipped, infinite):
-    """Pass 1: per-group count, weight sum and mean of the batch; returns bad-weight count."""
+    """Pass 1: per-group count, weight sum and mean of the batch, and which rows are used.
+
+    Returns (cnt, wsum, mean, ok, number of negative/infinite weights).
+    """
     d, n = z.shape
+    ok = np.zeros(n, np.bool_)
     cnt = np.zeros(groups, np.int64)
     wsum = np.zeros(groups)
     first = np.empty((groups, d))
@@ -60,6 +64,7 @@ def _batch_means(codes, z, w, use_w, groups, skipped, infinite):
             elif state == 4:
                 bad += 1
             continue
+        ok[i] = True
         wi = w[i] if use_w else 1.0
         if cnt[g] == 0:
             for j in range(d):
@@ -73,7 +78,7 @@ def _batch_means(codes, z, w, use_w, groups, skipped, infinite):
         if cnt[g] > 0:
             for j in range(d):
                 mean[g, j] = first[g, j] + acc[g, j] / wsum[g]
-    return cnt, wsum, mean, bad
+    return cnt, wsum, mean, ok, bad
 
 
 @njit(cache=True, nogil=True)
@@ -86,7 +91,7 @@ def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipp
     """
     groups = n_tot.shape[0]
     d, n = z.shape
-    cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
+    cnt, wsum, mean, ok, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
     if bad:
         return bad
     hi = np.zeros((groups, d, d))
@@ -95,7 +100,7 @@ def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipp
     r = np.empty(d)
     for i in range(n):
         g = codes[i]
-        if _row_ok(z, w, i, d, use_w) != 0:
+        if not ok[i]:
             continue
         wi = w[i] if use_w else 1.0
         for j in range(d):
@@ -160,7 +165,7 @@ def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, in
     """Merge one batch into the QR state (R^T R = C); same contract as accumulate_comoment."""
     groups = n_tot.shape[0]
     d, n = z.shape
-    cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
+    cnt, wsum, mean, ok, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
     if bad:
         return bad
     row = np.empty(d)
@@ -181,7 +186,7 @@ def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, in
         n_tot[g] += cnt[g]
     for i in range(n):
         g = codes[i]
-        if _row_ok(z, w, i, d, use_w) != 0:
+        if not ok[i]:
             continue
         sw = math.sqrt(w[i]) if use_w else 1.0
         for j in range(d):

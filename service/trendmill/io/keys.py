@@ -16,6 +16,8 @@ import pyarrow.compute as pc
 
 __all__ = ["KeyIndex"]
 
+_DENSE_MAX_RANGE = 1 << 24
+
 
 class _ValueIndex:
     """Distinct values of one Arrow type -> ids 0, 1, 2... in order of first appearance."""
@@ -25,10 +27,46 @@ class _ValueIndex:
         self._chunks: list[pa.Array] = []
         self._known: pa.Array = pa.array([], type=type_)
         self.size = 0
+        # integer keys in a compact range map through a lookup table (no hashing);
+        # the first null or sparse batch switches to the general path for good
+        self._dense_ok = pa.types.is_integer(type_)
+        self._dense_lo = 0
+        self._dense_lut = np.zeros(0, np.int64)
+
+    def _dense_ids(self, v: np.ndarray) -> np.ndarray | None:
+        if len(v) == 0:
+            return np.zeros(0, np.int64)
+        lo, hi = int(v.min()), int(v.max())
+        if self.size:
+            lo, hi = min(lo, self._dense_lo), max(hi, self._dense_lo + len(self._dense_lut) - 1)
+        if hi - lo >= _DENSE_MAX_RANGE:
+            return None
+        if lo != self._dense_lo or hi - lo + 1 != len(self._dense_lut):
+            lut = np.full(hi - lo + 1, -1, np.int64)
+            if len(self._dense_lut):
+                start = self._dense_lo - lo
+                lut[start:start + len(self._dense_lut)] = self._dense_lut
+            self._dense_lo, self._dense_lut = lo, lut
+        pos = v.astype(np.int64) - lo
+        out = self._dense_lut[pos]
+        missing = out < 0
+        if missing.any():
+            fresh = pos[missing][np.sort(np.unique(pos[missing], return_index=True)[1])]
+            ids = np.arange(self.size, self.size + len(fresh), dtype=np.int64)
+            self._dense_lut[fresh] = ids
+            self._known = pa.concat_arrays([self._known, pa.array(fresh + lo).cast(self.type)])
+            self.size += len(fresh)
+            out = self._dense_lut[pos]
+        return out
 
     def ids(self, values: pa.Array | pa.ChunkedArray) -> np.ndarray:
         if isinstance(values, pa.ChunkedArray):
             values = values.combine_chunks()
+        if self._dense_ok and pa.types.is_integer(values.type) and values.null_count == 0:
+            out = self._dense_ids(values.to_numpy())
+            if out is not None:
+                return out
+        self._dense_ok = False
         if pa.types.is_dictionary(values.type):
             dictionary, indices = values.dictionary, values.indices
             if dictionary.type != self.type:
