@@ -16,7 +16,7 @@ import math
 import numpy as np
 from numba import njit
 
-__all__ = ["accumulate_comoment", "accumulate_qr"]
+__all__ = ["accumulate_comoment", "accumulate_qr", "ints_to_float"]
 
 
 @njit(cache=True, nogil=True)
@@ -193,3 +193,14 @@ def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, in
             row[j] = sw * (z[j, i] - mean[g, j])
         _rotate_in(r_tot, g, row, d)
     return 0
+
+
+@njit(cache=True, nogil=True)
+def ints_to_float(ints, origin, per_unit, out):
+    """out = (ints - origin) / per_unit: the subtraction is exact in int64, then one rounding."""
+    if per_unit == 1.0:
+        for i in range(ints.shape[0]):
+            out[i] = float(ints[i] - origin)
+    else:
+        for i in range(ints.shape[0]):
+            out[i] = float(ints[i] - origin) / per_unit

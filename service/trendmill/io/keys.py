@@ -47,11 +47,14 @@ class _ValueIndex:
                 start = self._dense_lo - lo
                 lut[start:start + len(self._dense_lut)] = self._dense_lut
             self._dense_lo, self._dense_lut = lo, lut
-        pos = v.astype(np.int64) - lo
+        pos = v - lo if v.dtype == np.int64 else v.astype(np.int64) - lo
         out = self._dense_lut[pos]
         missing = out < 0
         if missing.any():
-            fresh = pos[missing][np.sort(np.unique(pos[missing], return_index=True)[1])]
+            # new values in value order (ids need only be deterministic): a mark pass, no sort
+            marks = np.zeros(len(self._dense_lut), np.bool_)
+            marks[pos[missing]] = True
+            fresh = np.flatnonzero(marks)
             ids = np.arange(self.size, self.size + len(fresh), dtype=np.int64)
             self._dense_lut[fresh] = ids
             self._known = pa.concat_arrays([self._known, pa.array(fresh + lo).cast(self.type)])

@@ -61,24 +61,23 @@ def scan_tasks(plan: FitPlan, *, use_threads: bool = False) -> list[ScanTask]:
                      plan.spec.weight is not None, form, use_threads) for p in plan.partitions]
 
 
-def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan) -> np.ndarray:
-    """Column -> float64 with NaN for nulls, offsets removed in integer arithmetic."""
+def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan, out: np.ndarray) -> None:
+    """Column -> float64 into ``out`` with NaN for nulls; offsets removed in integer arithmetic."""
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks()
-    if col.kind == "float":
+    if col.kind in ("float", "bool"):
         if not pa.types.is_float64(arr.type):
             arr = arr.cast(pa.float64())
-        return arr.fill_null(np.nan).to_numpy(zero_copy_only=False)
-    if col.kind == "bool":
-        return arr.cast(pa.float64()).fill_null(np.nan).to_numpy(zero_copy_only=False)
-    raw = arr.cast(pa.int64()) if col.kind != "timestamp" else arr.view(pa.int64())
-    ints = raw.fill_null(0).to_numpy(zero_copy_only=False)
-    out = (ints - np.int64(col.origin)).astype(np.float64)
-    if col.per_unit != 1.0:
-        out /= col.per_unit
+        if arr.null_count:
+            arr = arr.fill_null(np.nan)
+        out[:] = arr.to_numpy(zero_copy_only=False)
+        return
+    raw = arr.view(pa.int64()) if col.kind == "timestamp" else arr.cast(pa.int64())
+    if raw.null_count:
+        raw = raw.fill_null(0)
+    _kernel.ints_to_float(raw.to_numpy(zero_copy_only=False), col.origin, col.per_unit, out)
     if arr.null_count:
         out[arr.is_null().to_numpy(zero_copy_only=False)] = np.nan
-    return out
 
 
 class _Growing:
@@ -135,8 +134,11 @@ def scan_partition(task: ScanTask) -> PartitionMoments:
             state.ensure(keys.size)
             z = np.empty((d, n))
             for j, col in enumerate(task.columns[:d]):
-                z[j] = _as_float(batch.column(col.name), col)
-            w = _as_float(batch.column(task.columns[d].name), task.columns[d]) if task.weighted else empty_w
+                _as_float(batch.column(col.name), col, z[j])
+            w = empty_w
+            if task.weighted:
+                w = np.empty(n)
+                _as_float(batch.column(task.columns[d].name), task.columns[d], w)
             bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
                              state.skipped, state.infinite)
             if bad:
