@@ -19,7 +19,7 @@ import numpy as np
 import pyarrow as pa
 
 from .engine.errors import Cancelled
-from .engine.moments import Moments, merge_moments
+from .engine.moments import Moments, empty_moments, merge_into
 from .engine.solve import solve_moments
 from .engine.spec import FitSpec
 from .io.keys import KeyIndex
@@ -60,34 +60,30 @@ class _Merger:
     def __init__(self, plan: FitPlan) -> None:
         self.keys = KeyIndex(plan.spec.by, plan.key_types)
         d = len(plan.spec.x) + 1
-        self.form = "qr" if plan.spec.solver == "qr" else "comoment"
-        self.n = np.zeros(0, np.int64)
-        self.w = np.zeros(0)
-        self.mean = np.zeros((0, d))
-        self.cross = np.zeros((0, d, d))
+        self.state = empty_moments(0, d, form="qr" if plan.spec.solver == "qr" else "comoment")
         self.skipped = np.zeros(0, np.int64)
         self.infinite = np.zeros(0, np.int64)
 
+    def _grow(self, size: int) -> None:
+        extra = size - self.state.groups
+        if extra <= 0:
+            return
+        s, e = self.state, empty_moments(extra, self.state.dim, form=self.state.form)
+        self.state = Moments(np.concatenate([s.n, e.n]), np.concatenate([s.w, e.w]),
+                             np.concatenate([s.mean, e.mean]), np.concatenate([s.cross, e.cross]), s.form)
+        self.skipped = np.concatenate([self.skipped, np.zeros(extra, np.int64)])
+        self.infinite = np.concatenate([self.infinite, np.zeros(extra, np.int64)])
+
     def add(self, part: PartitionMoments) -> None:
         g = part.moments.groups
-        idx = self.keys.ids([part.keys.column(n) for n in part.keys.column_names], g) if g else np.zeros(0, np.int64)
-        size = self.keys.size
-        if size > len(self.n):
-            extra = size - len(self.n)
-            self.n = np.concatenate([self.n, np.zeros(extra, np.int64)])
-            self.w = np.concatenate([self.w, np.zeros(extra)])
-            self.mean = np.concatenate([self.mean, np.zeros((extra,) + self.mean.shape[1:])])
-            self.cross = np.concatenate([self.cross, np.zeros((extra,) + self.cross.shape[1:])])
-            self.skipped = np.concatenate([self.skipped, np.zeros(extra, np.int64)])
-            self.infinite = np.concatenate([self.infinite, np.zeros(extra, np.int64)])
-        mine = Moments(self.n[idx], self.w[idx], self.mean[idx], self.cross[idx], self.form)
-        merged = merge_moments(mine, part.moments)
-        self.n[idx], self.w[idx], self.mean[idx], self.cross[idx] = merged.n, merged.w, merged.mean, merged.cross
+        idx = self.keys.ids([part.keys.column(n) for n in part.keys.column_names], g)
+        self._grow(self.keys.size)
+        merge_into(self.state, idx, part.moments)
         self.skipped[idx] += part.skipped
         self.infinite[idx] += part.infinite
 
     def moments(self) -> Moments:
-        return Moments(self.n, self.w, self.mean, self.cross, self.form)
+        return self.state
 
 
 def merge_partitions(plan: FitPlan, parts: list[PartitionMoments]) -> _Merger:

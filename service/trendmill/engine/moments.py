@@ -93,12 +93,15 @@ def merge_moments(a: Moments, b: Moments) -> Moments:
     return Moments(a.n + b.n, w, mean, cross, a.form)
 
 
-def merge_into(total: Moments, idx: np.ndarray, part: Moments) -> Moments:
-    """Merge ``part`` (groups ``idx`` of ``total``, unique) into ``total``; returns the new state."""
+def merge_into(total: Moments, idx: np.ndarray, part: Moments) -> None:
+    """Merge ``part`` into groups ``idx`` (unique) of ``total``, updating total's arrays in place.
+
+    In place because the coordinator folds hundreds of partitions into one state of
+    up to millions of groups; copying it each time would dominate.
+    """
     merged = merge_moments(total.take(idx), part)
-    n, w, mean, cross = total.n.copy(), total.w.copy(), total.mean.copy(), total.cross.copy()
-    n[idx], w[idx], mean[idx], cross[idx] = merged.n, merged.w, merged.mean, merged.cross
-    return Moments(n, w, mean, cross, total.form)
+    total.n[idx], total.w[idx] = merged.n, merged.w
+    total.mean[idx], total.cross[idx] = merged.mean, merged.cross
 
 
 def to_comoment(m: Moments) -> Moments:

@@ -105,6 +105,8 @@ def _embed_kept(r_aug: np.ndarray, keep: np.ndarray) -> np.ndarray:
     Dropped features become identity rows/columns, so the result stays upper
     triangular in the original column order and the uniform solve applies.
     """
+    if keep.all():
+        return r_aug
     out = r_aug.copy()
     p = keep.shape[1]
     patterns, inverse = np.unique(keep, axis=0, return_inverse=True)
