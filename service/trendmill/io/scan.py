@@ -25,6 +25,8 @@ from .plan import ColumnPlan, FitPlan, Partition
 __all__ = ["ScanTask", "PartitionMoments", "scan_partition", "scan_tasks", "BATCH_ROWS"]
 
 BATCH_ROWS = 1 << 20
+# decoded batches held ahead of the kernel: enough to overlap decoding, bounded memory
+_READAHEAD = 2
 _LOCAL_FS = pafs.LocalFileSystem()
 
 
@@ -122,6 +124,7 @@ def scan_partition(task: ScanTask) -> PartitionMoments:
             row_groups=part.row_groups)
         scanner = ds.Scanner.from_fragment(fragment, schema=task.schema, columns=names,
                                            filter=task.filter, batch_size=task.batch_rows,
+                                           batch_readahead=_READAHEAD, fragment_readahead=1,
                                            use_threads=task.use_threads)
         batches = scanner.to_batches()
         empty_w = np.empty(0)
