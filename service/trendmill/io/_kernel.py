@@ -41,22 +41,37 @@ def _row_ok(z, w, i, d, use_w):
 
 
 @njit(cache=True, nogil=True)
-def _batch_means(codes, z, w, use_w, groups, skipped, infinite):
-    """Pass 1: per-group count, weight sum and mean of the batch, and which rows are used.
+def _batch_means(codes, z, w, use_w, slot, skipped, infinite):
+    """Pass 1: batch-local slots of the groups present, their counts, weight sums and means.
 
-    Returns (cnt, wsum, mean, ok, number of negative/infinite weights).
+    ``slot`` (>= groups, all -1) maps a group to its slot in this batch, so scratch
+    space grows with the groups of the batch, not of the partition; the caller
+    resets it. Returns (member slot per row or -1, slot -> group, cnt, wsum, mean,
+    number of negative/infinite weights).
     """
     d, n = z.shape
-    ok = np.zeros(n, np.bool_)
-    cnt = np.zeros(groups, np.int64)
-    wsum = np.zeros(groups)
-    first = np.empty((groups, d))
-    acc = np.zeros((groups, d))
+    member = np.empty(n, np.int64)
+    cap = min(n, slot.shape[0])
+    group_of = np.empty(cap, np.int64)
+    cnt = np.zeros(cap, np.int64)
+    wsum = np.zeros(cap)
+    first = np.empty((cap, d))
+    acc = np.zeros((cap, d))
+    used = 0
     bad = 0
     for i in range(n):
         g = codes[i]
-        state = _row_ok(z, w, i, d, use_w)
+        # fast path: v - v == 0 holds exactly for finite v (NaN and +-inf give NaN)
+        finite = True
+        for j in range(d):
+            v = z[j, i]
+            finite &= v - v == 0.0
+        if use_w:
+            v = w[i]
+            finite &= (v - v == 0.0) and v > 0.0
+        state = 0 if finite else _row_ok(z, w, i, d, use_w)
         if state != 0:
+            member[i] = -1
             if state == 1:
                 skipped[g] += 1
             elif state == 2:
@@ -64,81 +79,118 @@ def _batch_means(codes, z, w, use_w, groups, skipped, infinite):
             elif state == 4:
                 bad += 1
             continue
-        ok[i] = True
+        k = slot[g]
+        if k < 0:
+            k = used
+            used += 1
+            slot[g] = k
+            group_of[k] = g
+            for j in range(d):
+                first[k, j] = z[j, i]
+        member[i] = k
         wi = w[i] if use_w else 1.0
-        if cnt[g] == 0:
-            for j in range(d):
-                first[g, j] = z[j, i]
-        cnt[g] += 1
-        wsum[g] += wi
+        cnt[k] += 1
+        wsum[k] += wi
         for j in range(d):
-            acc[g, j] += wi * (z[j, i] - first[g, j])
-    mean = np.zeros((groups, d))
-    for g in range(groups):
-        if cnt[g] > 0:
-            for j in range(d):
-                mean[g, j] = first[g, j] + acc[g, j] / wsum[g]
-    return cnt, wsum, mean, ok, bad
+            acc[k, j] += wi * (z[j, i] - first[k, j])
+    mean = np.empty((used, d))
+    for k in range(used):
+        for j in range(d):
+            mean[k, j] = first[k, j] + acc[k, j] / wsum[k]
+    return member, group_of[:used], cnt[:used], wsum[:used], mean, bad
 
 
 @njit(cache=True, nogil=True)
-def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipped, infinite):
+def _flush(hi, lo, e, k, lhi, llo, le, d):
+    """Add a run's local sums into slot k (two-sum, so nothing is lost), then clear them."""
+    t = 0
+    for a in range(d):
+        e[k, a] += le[a]
+        le[a] = 0.0
+        for b in range(a, d):
+            x = lhi[t]
+            s = hi[k, t] + x
+            bp = s - hi[k, t]
+            lo[k, t] += (hi[k, t] - (s - bp)) + (x - bp) + llo[t]
+            hi[k, t] = s
+            lhi[t] = 0.0
+            llo[t] = 0.0
+            t += 1
+
+
+@njit(cache=True, nogil=True)
+def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipped, infinite, slot):
     """Merge one batch into the co-moment state (arrays updated in place).
 
     codes (n,) int64 group ids < len(n_tot); z (d, n) float64 (x..., y) with NaN for
-    nulls; w (n,) weights (ignored unless use_w). Returns the number of rows with a
-    negative or infinite weight (the caller raises).
+    nulls; w (n,) weights (ignored unless use_w); slot (>= len(n_tot)) int64 all -1,
+    left so. Returns the number of rows with a negative or infinite weight (the
+    caller raises).
     """
-    groups = n_tot.shape[0]
     d, n = z.shape
-    cnt, wsum, mean, ok, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
+    member, group_of, cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, slot, skipped, infinite)
+    for k in range(group_of.shape[0]):
+        slot[group_of[k]] = -1
     if bad:
         return bad
-    hi = np.zeros((groups, d, d))
-    lo = np.zeros((groups, d, d))
-    e = np.zeros((groups, d))
+    used = group_of.shape[0]
+    tri = d * (d + 1) // 2
+    hi = np.zeros((used, tri))
+    lo = np.zeros((used, tri))
+    e = np.zeros((used, d))
+    # rows of one group usually come in runs (files sorted by key): sum a run in
+    # locals and touch the group's slot once per run
+    lhi = np.zeros(tri)
+    llo = np.zeros(tri)
+    le = np.zeros(d)
     r = np.empty(d)
+    cur = -1
     for i in range(n):
-        g = codes[i]
-        if not ok[i]:
+        k = member[i]
+        if k < 0:
             continue
+        if k != cur:
+            if cur >= 0:
+                _flush(hi, lo, e, cur, lhi, llo, le, d)
+            cur = k
         wi = w[i] if use_w else 1.0
         for j in range(d):
-            r[j] = z[j, i] - mean[g, j]
-            e[g, j] += wi * r[j]
+            r[j] = z[j, i] - mean[k, j]
+            le[j] += wi * r[j]
+        t = 0
         for a in range(d):
             wa = wi * r[a]
             for b in range(a, d):
-                # two-sum: hi + lo carries the sum exactly to twice the precision
-                t = wa * r[b]
-                s = hi[g, a, b] + t
-                bp = s - hi[g, a, b]
-                lo[g, a, b] += (hi[g, a, b] - (s - bp)) + (t - bp)
-                hi[g, a, b] = s
-    for g in range(groups):
-        if cnt[g] == 0:
-            continue
-        wb = wsum[g]
+                x = wa * r[b]
+                s = lhi[t] + x
+                bp = s - lhi[t]
+                llo[t] += (lhi[t] - (s - bp)) + (x - bp)
+                lhi[t] = s
+                t += 1
+    if cur >= 0:
+        _flush(hi, lo, e, cur, lhi, llo, le, d)
+    delta = np.empty(d)
+    for k in range(used):
+        g = group_of[k]
+        wb = wsum[k]
+        # Chan's update with the batch mean corrected by the residual sums
+        wt = w_tot[g] + wb
+        fb = wb / wt
+        f = w_tot[g] * fb
+        for a in range(d):
+            delta[a] = mean[k, a] + e[k, a] / wb - mean_tot[g, a]
+        t = 0
         for a in range(d):
             for b in range(a, d):
-                c = (hi[g, a, b] + lo[g, a, b]) - e[g, a] * e[g, b] / wb
-                hi[g, a, b] = c
-                hi[g, b, a] = c
-        # Chan's update with the corrected batch mean
-        wa_ = w_tot[g]
-        wt = wa_ + wb
-        fb = wb / wt
-        f = wa_ * fb
+                c = (hi[k, t] + lo[k, t]) - e[k, a] * e[k, b] / wb + f * delta[a] * delta[b]
+                c_tot[g, a, b] += c
+                if b != a:
+                    c_tot[g, b, a] += c
+                t += 1
         for a in range(d):
-            mb = mean[g, a] + e[g, a] / wb
-            r[a] = mb - mean_tot[g, a]
-        for a in range(d):
-            for b in range(d):
-                c_tot[g, a, b] += hi[g, a, b] + f * r[a] * r[b]
-        for a in range(d):
-            mean_tot[g, a] += r[a] * fb
+            mean_tot[g, a] += delta[a] * fb
         w_tot[g] = wt
-        n_tot[g] += cnt[g]
+        n_tot[g] += cnt[k]
     return 0
 
 
@@ -161,37 +213,37 @@ def _rotate_in(rmat, g, row, d):
 
 
 @njit(cache=True, nogil=True)
-def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, infinite):
+def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, infinite, slot):
     """Merge one batch into the QR state (R^T R = C); same contract as accumulate_comoment."""
-    groups = n_tot.shape[0]
     d, n = z.shape
-    cnt, wsum, mean, ok, bad = _batch_means(codes, z, w, use_w, groups, skipped, infinite)
+    member, group_of, cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, slot, skipped, infinite)
+    for k in range(group_of.shape[0]):
+        slot[group_of[k]] = -1
     if bad:
         return bad
     row = np.empty(d)
     # Chan's cross term first: rotating sqrt(Wa Wb / W) (mb - ma) into R is the merge,
     # the batch's centred rows follow into the same factor.
-    for g in range(groups):
-        if cnt[g] == 0:
-            continue
-        wt = w_tot[g] + wsum[g]
-        fb = wsum[g] / wt
+    for k in range(group_of.shape[0]):
+        g = group_of[k]
+        wt = w_tot[g] + wsum[k]
+        fb = wsum[k] / wt
         f = math.sqrt(w_tot[g] * fb)
         for a in range(d):
-            delta = mean[g, a] - mean_tot[g, a]
+            delta = mean[k, a] - mean_tot[g, a]
             row[a] = f * delta
             mean_tot[g, a] += delta * fb
         _rotate_in(r_tot, g, row, d)
         w_tot[g] = wt
-        n_tot[g] += cnt[g]
+        n_tot[g] += cnt[k]
     for i in range(n):
-        g = codes[i]
-        if not ok[i]:
+        k = member[i]
+        if k < 0:
             continue
         sw = math.sqrt(w[i]) if use_w else 1.0
         for j in range(d):
-            row[j] = sw * (z[j, i] - mean[g, j])
-        _rotate_in(r_tot, g, row, d)
+            row[j] = sw * (z[j, i] - mean[k, j])
+        _rotate_in(r_tot, codes[i], row, d)
     return 0
 
 

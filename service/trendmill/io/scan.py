@@ -106,6 +106,7 @@ class _Growing:
 
         self.n, self.w, self.mean, self.cross, self.skipped, self.infinite = map(
             grow, (self.n, self.w, self.mean, self.cross, self.skipped, self.infinite))
+        self.slot = np.full(self.cap, -1, np.int64)     # the kernel's scratch, all -1 between batches
 
 
 def scan_partition(task: ScanTask) -> PartitionMoments:
@@ -143,7 +144,7 @@ def scan_partition(task: ScanTask) -> PartitionMoments:
                 w = np.empty(n)
                 _as_float(batch.column(task.columns[d].name), task.columns[d], w)
             bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
-                             state.skipped, state.infinite)
+                             state.skipped, state.infinite, state.slot)
             if bad:
                 col = task.columns[d].name
                 raise DataError(f"weight: column {col!r} has {bad} negative or infinite values in "
