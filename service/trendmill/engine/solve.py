@@ -74,6 +74,14 @@ def _tri_inverse(u: np.ndarray) -> np.ndarray:
     return inv
 
 
+def _t_quantiles(df: np.ndarray, q: float) -> np.ndarray:
+    """Student-t quantile per group; computed once per distinct df (the inverse is slow)."""
+    values, inverse = np.unique(df, return_inverse=True)
+    with np.errstate(invalid="ignore"):
+        quant = special.stdtrit(np.where(values > 0, values, np.nan).astype(float), q)
+    return quant[inverse.ravel()]
+
+
 def _cholesky_dropping(a: np.ndarray, keep: np.ndarray, tol: float) -> tuple[np.ndarray, np.ndarray]:
     """Order-preserving Cholesky a = L L^T of stacked unit-diagonal matrices.
 
@@ -213,8 +221,11 @@ def _solve(m: Moments, features, intercept, shift, confidence, solver) -> GroupF
         uinv = _tri_inverse(upper)
         beta_s = np.einsum("gij,gj->gi", uinv, rhs)
         ainv = uinv @ np.swapaxes(uinv, -1, -2)
-        sv = np.linalg.svd(upper, compute_uv=False) if g else np.zeros((0, p))
-        cond = (sv[:, 0] / sv[:, -1]) ** 2
+        if p == 1:      # a 1x1 equilibrated matrix is perfectly conditioned
+            cond = np.ones(g)
+        else:
+            sv = np.linalg.svd(upper, compute_uv=False) if g else np.zeros((0, p))
+            cond = (sv[:, 0] / sv[:, -1]) ** 2
 
         beta = np.where(keep, beta_s / scale, np.nan)
         xinv = ainv / (scale[:, :, None] * scale[:, None, :])
@@ -249,7 +260,7 @@ def _solve(m: Moments, features, intercept, shift, confidence, solver) -> GroupF
         t = est / se
         dff = df.astype(float)
         pval = 2.0 * special.stdtr(np.where(df > 0, dff, np.nan)[:, None], -np.abs(t))
-        tcrit = special.stdtrit(np.where(df > 0, dff, np.nan), 0.5 + confidence / 2.0)
+        tcrit = _t_quantiles(df, 0.5 + confidence / 2.0)
         half = tcrit[:, None] * se
         r2 = 1.0 - sse / sst
         df_model = k - (1 if intercept else 0)

@@ -129,6 +129,8 @@ class KeyIndex:
         """Key values of ids 0..size-1, one column per key column."""
         if not self._cols:
             return pa.table({})
+        if len(self._cols) == 1:
+            return pa.table([self._cols[0].values()], names=list(self.names))
         ids = np.arange(self.size, dtype=np.int64)
         per_col = [None] * len(self._cols)
         for pos in range(len(self._folds) - 1, -1, -1):
