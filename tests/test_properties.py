@@ -198,8 +198,6 @@ def test_any_layout_gives_the_same_fit(tmp_path, solver, cols, st_layout, weight
                               f"hive={layout.hive}, {solver}")
 
 
-@pytest.mark.xfail(strict=True, reason="engine: float columns have no origin, so merged means sit at 1e9 "
-                                       "and Chan's delta loses ~1e-10 of C (io/plan.py _origin)")
 @pytest.mark.parametrize("solver", ["normal", "qr"])
 def test_split_at_large_offset_gives_the_same_fit(tmp_path, solver):
     # Columns at 1e9 + spread (epoch seconds stored as floats, say). The rows of one

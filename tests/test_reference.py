@@ -30,13 +30,6 @@ from helpers import fit, rows_by_key, write_parquet
 RTOL = 1e-8
 SOLVERS = ("normal", "qr")
 
-# Known engine bug (reported to the lead): float columns are scanned without an
-# origin, so merged states keep means at ~1e9 and Chan's delta = mb - ma carries
-# ~ulp(1e9) error into the centred moments (1e6x more than one batch). Shows here
-# as a 2e-8 error in cov(intercept, a) of the WLS fit at the 1e9 offset.
-XFAIL_FLOAT_OFFSET = pytest.mark.xfail(
-    strict=True, reason="engine: float columns have no origin, merges at 1e9 offsets lose ~1e-10 of C "
-                        "(io/plan.py _origin, io/scan.py _as_float)")
 STATS = ("r_squared", "adj_r_squared", "residual_std_error", "f_statistic", "f_p_value")
 
 
@@ -164,7 +157,7 @@ def scaled_sources(tmp_path_factory):
 @pytest.mark.parametrize("weighted,intercept", [
     pytest.param(False, True, id="ols-intercept"),
     pytest.param(False, False, id="ols-no_intercept"),
-    pytest.param(True, True, id="wls-intercept", marks=XFAIL_FLOAT_OFFSET),
+    pytest.param(True, True, id="wls-intercept"),
     pytest.param(True, False, id="wls-no_intercept"),
 ])
 def test_every_column_matches_statsmodels(scaled_sources, weighted, intercept, confidence, solver):
@@ -191,7 +184,6 @@ def test_every_column_matches_statsmodels(scaled_sources, weighted, intercept, c
         assert row["n_skipped"] == 0 and row["n_infinite"] == 0
 
 
-@XFAIL_FLOAT_OFFSET
 def test_workers_two_matches_statsmodels(scaled_sources):
     # the same check through real worker processes (two files -> two partitions)
     source, df = scaled_sources[True]
@@ -426,8 +418,6 @@ def _exact_slope(xs: list[int], ys: list[float]) -> float:
     return float(sum((x - mx) * (v - my) for x, v in zip(xs, fy)) / sum((x - mx) ** 2 for x in xs))
 
 
-@pytest.mark.xfail(strict=True, reason="engine: ints - origin wraps around in int64 "
-                                       "(io/_kernel.py ints_to_float) and the fit is silently wrong")
 def test_int64_feature_spanning_more_than_half_the_range(tmp_path):
     # Integers are taken as their float64 values. Here max - min exceeds 2^63, so
     # "value - origin" cannot be formed in int64 without wrapping around.
@@ -439,8 +429,6 @@ def test_int64_feature_spanning_more_than_half_the_range(tmp_path):
     np.testing.assert_allclose(row["xi_estimate"], _exact_slope(xs, ys), rtol=1e-9)
 
 
-@pytest.mark.xfail(strict=True, reason="engine: uint64 -> int64 cast overflows (io/scan.py _as_float) "
-                                       "and is reported as CorruptSource")
 def test_uint64_feature_above_int64_range(tmp_path):
     # an unsigned column with values >= 2^63 is a valid integer column, not a corrupt file
     xs = [2**63 + 5, 2**63 + 100, 2**63 + 1000, 2**63 + 7]

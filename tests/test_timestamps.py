@@ -122,9 +122,6 @@ def test_timestamp_with_time_zone_and_second_feature(tmp_path, solver):
         np.testing.assert_allclose(row[col], float(want), rtol=RTOL, err_msg=f"{col} ({solver})")
 
 
-@pytest.mark.xfail(strict=True, reason="engine: io/scan.py _as_float casts date32 to int64, which Arrow "
-                                       "does not implement (needs .view(pa.int32()) first); "
-                                       "reported as CorruptSource")
 @pytest.mark.parametrize("solver", ["normal", "qr"])
 @pytest.mark.parametrize("date_type", [pa.date32(), pa.date64()], ids=["date32", "date64"])
 def test_date_slope_exact(tmp_path, date_type, solver):

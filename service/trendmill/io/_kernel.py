@@ -249,10 +249,16 @@ def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, in
 
 @njit(cache=True, nogil=True)
 def ints_to_float(ints, origin, per_unit, out):
-    """out = (ints - origin) / per_unit: the subtraction is exact in int64, then one rounding."""
-    if per_unit == 1.0:
-        for i in range(ints.shape[0]):
-            out[i] = float(ints[i] - origin)
-    else:
-        for i in range(ints.shape[0]):
-            out[i] = float(ints[i] - origin) / per_unit
+    """out = (ints - origin) / per_unit: the subtraction is exact in int64, then one rounding.
+
+    A difference beyond the int64 range (wrapped: its sign disagrees with the
+    comparison) is taken in float64 instead.
+    """
+    for i in range(ints.shape[0]):
+        v = ints[i]
+        diff = v - origin
+        if (v >= origin) != (diff >= 0):
+            x = float(v) - float(origin)
+        else:
+            x = float(diff)
+        out[i] = x if per_unit == 1.0 else x / per_unit

@@ -305,7 +305,7 @@ class _Parser:
 
     def unexpected(self, tok: _Token, expected: str | None = None) -> FilterError:
         if tok.kind == "end":
-            return _error(self.text, "filter ends early", None, expected or "more")
+            return _error(self.text, "expression ends early", None, expected or "more")
         shown = self.text[tok.start:tok.end]
         shown = shown if len(shown) <= 30 else shown[:27] + "..."
         return _error(self.text, f"unexpected {shown!r}", tok.start, expected)

@@ -49,14 +49,15 @@ class Partition:
 class ColumnPlan:
     """How one used column becomes float64: ``(raw - origin) / per_unit``.
 
-    ``kind``: ``float`` (floats, decimals), ``int``, ``bool``, ``timestamp``
-    (-> seconds), ``date`` (-> days). ``origin`` is an integer in the raw unit,
-    subtracted in integer arithmetic so nanosecond epochs lose nothing.
+    ``kind``: ``float`` (floats, decimals), ``int``, ``uint`` (uint64), ``bool``, ``timestamp``
+    (-> seconds), ``date`` (-> days). ``origin`` is a value near the data in the raw
+    unit: an int for the integer kinds, subtracted in integer arithmetic so
+    nanosecond epochs lose nothing; a float for floats.
     """
 
     name: str
     kind: str
-    origin: int = 0
+    origin: int | float = 0
     per_unit: float = 1.0
 
     @property
@@ -125,6 +126,8 @@ def _column_kind(field: pa.Field, role: str) -> ColumnPlan:
     t = field.type
     if pa.types.is_floating(t) or pa.types.is_decimal(t):
         return ColumnPlan(field.name, "float")
+    if pa.types.is_uint64(t):       # values >= 2**63 have no int64 form
+        return ColumnPlan(field.name, "uint")
     if pa.types.is_integer(t):
         return ColumnPlan(field.name, "int")
     if pa.types.is_boolean(t):
@@ -153,9 +156,24 @@ def _key_type(field: pa.Field) -> pa.DataType:
     return t
 
 
+def raw_integers(arr: pa.Array) -> pa.Array:
+    """The int64 values behind an integer, date or timestamp array (no unit conversion)."""
+    t = arr.type
+    if pa.types.is_timestamp(t) or pa.types.is_date64(t):
+        return arr.view(pa.int64())
+    if pa.types.is_date32(t):
+        return arr.view(pa.int32()).cast(pa.int64())
+    return arr.cast(pa.int64())
+
+
 def _origin(col: ColumnPlan, first: pq.FileMetaData, schema: pa.Schema) -> ColumnPlan:
-    """Pick an integer origin near the data from the first row group's statistics."""
-    if col.kind not in ("int", "timestamp", "date") or first.num_row_groups == 0:
+    """Pick an origin near the data from the first row group's statistics.
+
+    Subtracting a nearby value makes the scan's means small, so Chan's merges of
+    partitions do not carry the rounding of a large offset. Integer kinds get an
+    integer origin (subtracted exactly in int64), floats a float one.
+    """
+    if col.kind == "bool" or first.num_row_groups == 0:
         return col
     names = first.schema.names
     if col.name not in names:       # a hive partition column: small values, no origin needed
@@ -164,10 +182,14 @@ def _origin(col: ColumnPlan, first: pq.FileMetaData, schema: pa.Schema) -> Colum
     if stats is None or not stats.has_min_max:
         return col
     try:
-        raw = pa.scalar(stats.min, type=schema.field(col.name).type).cast(pa.int64()).as_py()
-    except (pa.ArrowException, TypeError, ValueError):
+        low = pa.array([stats.min], type=schema.field(col.name).type)
+        if col.kind == "float":
+            origin = float(low.cast(pa.float64(), safe=False)[0].as_py())
+            return ColumnPlan(col.name, col.kind, origin if np.isfinite(origin) else 0.0, col.per_unit)
+        origin = low[0].as_py() if col.kind == "uint" else raw_integers(low)[0].as_py()
+    except (pa.ArrowException, TypeError, ValueError, OverflowError):
         return col
-    return ColumnPlan(col.name, col.kind, int(raw), col.per_unit)
+    return ColumnPlan(col.name, col.kind, int(origin), col.per_unit)
 
 
 def _partitions(files: list[str], metas: list[pq.FileMetaData], dataset: ds.FileSystemDataset,

@@ -20,7 +20,7 @@ from ..engine.errors import CorruptSource, DataError
 from ..engine.moments import Moments
 from . import _kernel
 from .keys import KeyIndex
-from .plan import ColumnPlan, FitPlan, Partition
+from .plan import ColumnPlan, FitPlan, Partition, raw_integers
 
 __all__ = ["ScanTask", "PartitionMoments", "scan_partition", "scan_tasks", "BATCH_ROWS"]
 
@@ -64,17 +64,30 @@ def scan_tasks(plan: FitPlan, *, use_threads: bool = False) -> list[ScanTask]:
 
 
 def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan, out: np.ndarray) -> None:
-    """Column -> float64 into ``out`` with NaN for nulls; offsets removed in integer arithmetic."""
+    """Column -> float64 into ``out`` minus the column's origin, with NaN for nulls.
+
+    Integer kinds subtract the origin in int64 arithmetic first, so it is exact.
+    """
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks()
     if col.kind in ("float", "bool"):
         if not pa.types.is_float64(arr.type):
-            arr = arr.cast(pa.float64())
-        if arr.null_count:
-            arr = arr.fill_null(np.nan)
-        out[:] = arr.to_numpy(zero_copy_only=False)
+            arr = arr.cast(pa.float64(), safe=False)
+        values = arr.to_numpy(zero_copy_only=False)      # nulls come out as NaN
+        if col.origin:
+            np.subtract(values, col.origin, out=out)
+        else:
+            out[:] = values
         return
-    raw = arr.view(pa.int64()) if col.kind == "timestamp" else arr.cast(pa.int64())
+    if col.kind == "uint":
+        v = arr.fill_null(0).to_numpy(zero_copy_only=False)
+        o = np.uint64(col.origin)
+        # unsigned differences are exact one way round; take the sign separately
+        np.copyto(out, np.where(v >= o, (v - o).astype(np.float64), -((o - v).astype(np.float64))))
+        if arr.null_count:
+            out[arr.is_null().to_numpy(zero_copy_only=False)] = np.nan
+        return
+    raw = raw_integers(arr)
     if raw.null_count:
         raw = raw.fill_null(0)
     _kernel.ints_to_float(raw.to_numpy(zero_copy_only=False), col.origin, col.per_unit, out)
@@ -109,16 +122,9 @@ class _Growing:
         self.slot = np.full(self.cap, -1, np.int64)     # the kernel's scratch, all -1 between batches
 
 
-def scan_partition(task: ScanTask) -> PartitionMoments:
-    """Scan one partition into per-group moments (the hot path)."""
+def _read_batches(task: ScanTask, names: list[str]):
+    """Decoded batches of the partition; a read or decode failure names the file."""
     part = task.partition
-    d = len(task.columns) - (1 if task.weighted else 0)
-    keys = KeyIndex(task.by, task.key_types)
-    state = _Growing(d)
-    state.ensure(1)
-    accumulate = _kernel.accumulate_qr if task.form == "qr" else _kernel.accumulate_comoment
-    names = [c.name for c in task.columns] + [b for b in task.by if b not in {c.name for c in task.columns}]
-    rows = 0
     try:
         fragment = ds.ParquetFileFormat().make_fragment(
             part.path, filesystem=_LOCAL_FS, partition_expression=part.partition_expression,
@@ -127,31 +133,44 @@ def scan_partition(task: ScanTask) -> PartitionMoments:
                                            filter=task.filter, batch_size=task.batch_rows,
                                            batch_readahead=_READAHEAD, fragment_readahead=1,
                                            use_threads=task.use_threads)
-        batches = scanner.to_batches()
-        empty_w = np.empty(0)
-        for batch in batches:
-            n = batch.num_rows
-            if n == 0:
-                continue
-            rows += n
-            codes = keys.ids([batch.column(b) for b in task.by], n)
-            state.ensure(keys.size)
-            z = np.empty((d, n))
-            for j, col in enumerate(task.columns[:d]):
-                _as_float(batch.column(col.name), col, z[j])
-            w = empty_w
-            if task.weighted:
-                w = np.empty(n)
-                _as_float(batch.column(task.columns[d].name), task.columns[d], w)
-            bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
-                             state.skipped, state.infinite, state.slot)
-            if bad:
-                col = task.columns[d].name
-                raise DataError(f"weight: column {col!r} has {bad} negative or infinite values in "
-                                f"{part.path!r}; weights must be finite and >= 0", column=col, path=part.path)
+        yield from scanner.to_batches()
     except (pa.ArrowException, OSError) as exc:
         first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise CorruptSource(f"source: cannot read {part.path!r} ({first})", path=part.path) from None
+
+
+def scan_partition(task: ScanTask) -> PartitionMoments:
+    """Scan one partition into per-group moments (the hot path)."""
+    part = task.partition
+    d = len(task.columns) - (1 if task.weighted else 0)
+    keys = KeyIndex(task.by, task.key_types)
+    state = _Growing(d)
+    state.ensure(1)
+    accumulate = _kernel.accumulate_qr if task.form == "qr" else _kernel.accumulate_comoment
+    used = {c.name for c in task.columns}
+    names = [c.name for c in task.columns] + [b for b in task.by if b not in used]
+    rows = 0
+    empty_w = np.empty(0)
+    for batch in _read_batches(task, names):
+        n = batch.num_rows
+        if n == 0:
+            continue
+        rows += n
+        codes = keys.ids([batch.column(b) for b in task.by], n)
+        state.ensure(keys.size)
+        z = np.empty((d, n))
+        for j, col in enumerate(task.columns[:d]):
+            _as_float(batch.column(col.name), col, z[j])
+        w = empty_w
+        if task.weighted:
+            w = np.empty(n)
+            _as_float(batch.column(task.columns[d].name), task.columns[d], w)
+        bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
+                         state.skipped, state.infinite, state.slot)
+        if bad:
+            col = task.columns[d].name
+            raise DataError(f"weight: column {col!r} has {bad} negative or infinite values in "
+                            f"{part.path!r}; weights must be finite and >= 0", column=col, path=part.path)
     g = keys.size
     m = Moments(state.n[:g].copy(), state.w[:g].copy(), state.mean[:g].copy(), state.cross[:g].copy(), task.form)
     return PartitionMoments(part.id, keys.keys(), m, state.skipped[:g].copy(), state.infinite[:g].copy(),
