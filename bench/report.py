@@ -40,6 +40,8 @@ def ratios(results: dict) -> list[dict]:
                 if large and peak:
                     found[(name, f"rss-{sc['large']}/rss-{small.removeprefix('rss-')}")] = large / peak
             continue
+        if sc["kind"] == "service":     # its own targets, printed by run.py
+            continue
         tm = _seconds(sc["contestants"].get(TM))
         for other, entry in sc["contestants"].items():
             s = _seconds(entry)
@@ -131,6 +133,8 @@ def format_report(results: dict) -> str:
              "  'of floor' = contestant's throughput / the bare grouped-sum scan's; (est.) = "
              "sampled and scaled by rows", ""]
     for name, sc in results["scenarios"].items():
+        if sc["kind"] == "service":
+            continue
         lines += (_memory_block if sc["kind"] == "memory" else _speed_block)(name, sc)
         lines.append("")
     lines.append(f"  {'scenario':<10}{'ratio':<26}{'value':>9}  {'target':<8} result")

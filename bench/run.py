@@ -149,6 +149,17 @@ def _run_memory(case: Case) -> dict:
     return {"large": sc.dataset, "small": list(sc.small_datasets), "fits": fits}
 
 
+def _run_service(case: Case, *, quick: bool) -> dict:
+    from service_bench import run_service_bench
+    try:
+        return run_service_bench(fit_source=case.data.path, lookup_source=case.smalls[0].path,
+                                 repeats=2 if quick else 3, lookups=500 if quick else 5000,
+                                 lookups_per_client=100 if quick else 1000, log=_log)
+    except Exception as exc:
+        traceback.print_exc()
+        return {"error": f"{type(exc).__name__}: {exc}"}
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(prog="python bench/run.py", description=__doc__.split("\n")[0])
     ap.add_argument("--quick", action="store_true", help="tiny sizes, about a minute")
@@ -171,7 +182,12 @@ def main(argv: list[str] | None = None) -> int:
         head = {"about": sc.about, "kind": sc.kind, "x": list(sc.x), "y": sc.y, "key": sc.key,
                 "rows": case.rows, "groups": case.groups, "bytes": case.data.bytes,
                 "params": case.data.params}
-        body = _run_memory(case) if sc.kind == "memory" else _run_speed(case, args.contestants)
+        if sc.kind == "memory":
+            body = _run_memory(case)
+        elif sc.kind == "service":
+            body = _run_service(case, quick=args.quick)
+        else:
+            body = _run_speed(case, args.contestants)
         results["scenarios"][name] = {**head, **body}
         case.scratch.clear()      # drop the pandas frame before the next scenario
         gc.collect()
@@ -179,6 +195,14 @@ def main(argv: list[str] | None = None) -> int:
     results["ratios"] = ratios(results)
 
     print(format_report(results))
+    service = results["scenarios"].get("service", {})
+    for t in service.get("targets", []):
+        print(f"  service {t['figure']:<28} {t['value']:>10.3f}  ({t['bound']})  {t['result']}")
+        results["ratios"].append({"scenario": "service", "ratio": t["figure"], "value": t["value"],
+                                  "target": t["bound"], "result": t["result"]})
+    for name in ("service_overhead_s", "lookup_p50_ms", "lookup_p99_ms", "lookups_per_s", "concurrent_clients"):
+        if name in service:
+            print(f"  service {name:<28} {service[name]:>10.3f}")
     args.out.parent.mkdir(parents=True, exist_ok=True)
     tmp = args.out.with_suffix(".tmp")
     tmp.write_text(json.dumps(results, indent=1, default=str))

@@ -50,8 +50,10 @@ DATASETS = {
 class Scenario:
     """What is fitted: ``y ~ x`` per ``key`` over dataset ``dataset``.
 
-    ``kind`` is ``"speed"`` (contestants are timed side by side) or ``"memory"``
-    (peak RSS of a trendmill fit on ``dataset`` vs on each of ``small_datasets``).
+    ``kind`` is ``"speed"`` (contestants are timed side by side), ``"memory"``
+    (peak RSS of a trendmill fit on ``dataset`` vs on each of ``small_datasets``) or
+    ``"service"`` (remote vs local fit of ``dataset``; lookups in a model of the
+    first of ``small_datasets``).
     """
 
     name: str
@@ -72,6 +74,9 @@ SCENARIOS = {
     "rss": Scenario("rss", "peak RSS of a trendmill fit (p=1): the p1 data vs about a tenth of "
                     "its rows, same groups", "p1", ("ts",), kind="memory",
                     small_datasets=("rss-2days", "rss-thin")),
+    "service": Scenario("service", "the same p1 fit through the gRPC service vs locally; lookup "
+                        "latency in a 1M-group model", "p1", ("ts",), kind="service",
+                        small_datasets=("groups1m",)),
 }
 
 
