@@ -756,3 +756,12 @@ def test_random_filters_select_what_python_selects(fleet, tree):
     dataset = ds.dataset(root, format="parquet", partitioning=DAY_PARTITIONING)
     text = format_filter(tree)
     assert _selected(dataset, text) == _expected(rows, lambda r: _py_eval(tree, r)), text
+
+
+def test_error_message_stays_one_line_when_the_text_has_newlines():
+    # found by hypothesis on a fresh clone: a string literal holding a newline was
+    # echoed into the message, which must stay one line for the CLI and gRPC
+    with pytest.raises(FilterError) as info:
+        parse_filter("' \n'")
+    assert "\n" not in str(info.value)
+    assert "\\n" in str(info.value)

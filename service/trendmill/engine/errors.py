@@ -46,6 +46,8 @@ class TrendmillError(Exception):
     reason = "TRENDMILL_ERROR"
 
     def __init__(self, message: str, **details: object) -> None:
+        # one line whatever the user's text held (a path or literal with a newline)
+        message = message.replace("\r", "\\r").replace("\n", "\\n")
         super().__init__(message)
         self.message = message
         self.details = {k: v for k, v in details.items() if v is not None}
