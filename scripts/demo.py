@@ -8,7 +8,7 @@
 4. prints the freezers with the steepest warming trend: the slope of cabinet
    temperature in degrees per day with its confidence interval (next to the
    drift the generator put in, to show the fit finds it),
-5. looks one freezer up and predicts its temperature a day later,
+5. looks one freezer up and predicts its temperature at noon on the last day,
 6. stops the service it started.
 
 Usage: ``python scripts/demo.py [--freezers N] [--days D] [--workdir DIR]``.
@@ -137,11 +137,12 @@ def main(argv: list[str] | None = None) -> int:
                 top = rows[0]
                 key = (top["site"], top["freezer_id"])
                 fit = client.lookup_group(job.model_version, key)
-                tomorrow = float(fleet["days"] * DAY_S + DAY_S / 2) + _start_epoch(fleet)
-                pred = client.predict("freezer-drift", key, [[tomorrow, 20.0, 0.0]])
+                # inside the fitted range: a trend says nothing beyond the data it saw
+                last_noon = float((fleet["days"] - 1) * DAY_S + DAY_S / 2) + _start_epoch(fleet)
+                pred = client.predict("freezer-drift", key, [[last_noon, 20.0, 0.0]])
                 p = pred.predictions[0]
                 print(f"5. lookup {key[0]}/{key[1]}: {fit.n_rows} readings, R² {fit.r_squared:.3f}; "
-                      f"at noon the day after the data (ambient 20 degC, door shut) its cabinet "
+                      f"at noon on the last day (ambient 20 degC, door shut) its cabinet "
                       f"is predicted at {p.mean:+.2f} degC ({round(pred.confidence * 100)}% "
                       f"prediction interval {p.prediction_low:+.2f} .. {p.prediction_high:+.2f})")
         finally:
