@@ -262,3 +262,36 @@ def ints_to_float(ints, origin, per_unit, out):
         else:
             x = float(diff)
         out[i] = x if per_unit == 1.0 else x / per_unit
+
+
+@njit(cache=True, nogil=True)
+def int_range(v):
+    """(min, max) of a non-empty integer array in one pass."""
+    lo = v[0]
+    hi = v[0]
+    for x in v:
+        if x < lo:
+            lo = x
+        elif x > hi:
+            hi = x
+    return lo, hi
+
+
+@njit(cache=True, nogil=True)
+def dense_lookup(v, lo, lut, next_id, out):
+    """out[i] = lut[v[i] - lo], giving unseen values the next ids in order of appearance.
+
+    Returns the positions (v - lo) of the new values, in id order.
+    """
+    fresh = np.empty(v.shape[0], np.int64)
+    nf = 0
+    for i in range(v.shape[0]):
+        pos = v[i] - lo
+        g = lut[pos]
+        if g < 0:
+            g = next_id + nf
+            lut[pos] = g
+            fresh[nf] = pos
+            nf += 1
+        out[i] = g
+    return fresh[:nf]

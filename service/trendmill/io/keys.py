@@ -14,6 +14,8 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from . import _kernel
+
 __all__ = ["KeyIndex"]
 
 _DENSE_MAX_RANGE = 1 << 24
@@ -36,7 +38,7 @@ class _ValueIndex:
     def _dense_ids(self, v: np.ndarray) -> np.ndarray | None:
         if len(v) == 0:
             return np.zeros(0, np.int64)
-        lo, hi = int(v.min()), int(v.max())
+        lo, hi = (int(b) for b in _kernel.int_range(v))
         if self.size:
             lo, hi = min(lo, self._dense_lo), max(hi, self._dense_lo + len(self._dense_lut) - 1)
         if hi - lo >= _DENSE_MAX_RANGE:
@@ -47,19 +49,11 @@ class _ValueIndex:
                 start = self._dense_lo - lo
                 lut[start:start + len(self._dense_lut)] = self._dense_lut
             self._dense_lo, self._dense_lut = lo, lut
-        pos = v - lo if v.dtype == np.int64 else v.astype(np.int64) - lo
-        out = self._dense_lut[pos]
-        missing = out < 0
-        if missing.any():
-            # new values in value order (ids need only be deterministic): a mark pass, no sort
-            marks = np.zeros(len(self._dense_lut), np.bool_)
-            marks[pos[missing]] = True
-            fresh = np.flatnonzero(marks)
-            ids = np.arange(self.size, self.size + len(fresh), dtype=np.int64)
-            self._dense_lut[fresh] = ids
+        out = np.empty(len(v), np.int64)
+        fresh = _kernel.dense_lookup(v, v.dtype.type(lo), self._dense_lut, self.size, out)
+        if len(fresh):
             self._known = pa.concat_arrays([self._known, pa.array(fresh + lo).cast(self.type)])
             self.size += len(fresh)
-            out = self._dense_lut[pos]
         return out
 
     def ids(self, values: pa.Array | pa.ChunkedArray) -> np.ndarray:

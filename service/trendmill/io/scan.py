@@ -24,7 +24,7 @@ from .plan import ColumnPlan, FitPlan, Partition, raw_integers
 
 __all__ = ["ScanTask", "PartitionMoments", "scan_partition", "scan_tasks", "BATCH_ROWS"]
 
-BATCH_ROWS = 1 << 18
+BATCH_ROWS = 1 << 20
 # decoded batches held ahead of the kernel: enough to overlap decoding, bounded memory
 _READAHEAD = 2
 _LOCAL_FS = pafs.LocalFileSystem()
