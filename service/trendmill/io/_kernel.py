@@ -59,6 +59,8 @@ def _batch_means(codes, z, w, use_w, slot, skipped, infinite):
     acc = np.zeros((cap, d))
     used = 0
     bad = 0
+    prev_g = -1
+    k = -1
     for i in range(n):
         g = codes[i]
         # fast path: v - v == 0 holds exactly for finite v (NaN and +-inf give NaN)
@@ -79,14 +81,16 @@ def _batch_means(codes, z, w, use_w, slot, skipped, infinite):
             elif state == 4:
                 bad += 1
             continue
-        k = slot[g]
-        if k < 0:
-            k = used
-            used += 1
-            slot[g] = k
-            group_of[k] = g
-            for j in range(d):
-                first[k, j] = z[j, i]
+        if g != prev_g:     # rows come in runs of one group: look the slot up once per run
+            prev_g = g
+            k = slot[g]
+            if k < 0:
+                k = used
+                used += 1
+                slot[g] = k
+                group_of[k] = g
+                for j in range(d):
+                    first[k, j] = z[j, i]
         member[i] = k
         wi = w[i] if use_w else 1.0
         cnt[k] += 1
