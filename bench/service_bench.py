@@ -25,8 +25,6 @@ from __future__ import annotations
 
 import json
 import os
-import signal
-import subprocess
 import sys
 import tempfile
 import threading
@@ -41,6 +39,8 @@ for _p in (ROOT / "service", ROOT / "client"):
 
 import numpy as np  # noqa: E402
 
+from trendmill.service.launch import start_server, stop_server  # noqa: E402
+
 __all__ = ["run_service_bench", "TARGETS"]
 
 #: (figure, comparison, bound) checked by the report
@@ -48,37 +48,9 @@ TARGETS = (("remote_over_local_fit", "<=", 1.1), ("lookup_p99_ms", "<=", 5.0))
 
 
 def _start_server(state: Path, data_root: Path, workers: int | None):
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join(
-        [str(ROOT / "service"), str(ROOT / "client"), os.environ.get("PYTHONPATH", "")]))
-    args = [sys.executable, "-m", "trendmill", "serve", "--listen", "127.0.0.1:0",
-            "--state", str(state), "--data-root", str(data_root), "--max-jobs", "1"]
-    if workers:
-        args += ["--workers", str(workers)]
-    proc = subprocess.Popen(args, stderr=subprocess.PIPE, text=True, env=env)
-    deadline = time.monotonic() + 120
-    while time.monotonic() < deadline:
-        line = proc.stderr.readline()
-        if not line:
-            break
-        try:
-            event = json.loads(line)
-        except ValueError:
-            continue
-        if event.get("event") == "serving":
-            # Keep draining the log so the server never blocks on a full pipe.
-            threading.Thread(target=proc.stderr.read, daemon=True).start()
-            return proc, event["address"]
-    proc.kill()
-    raise RuntimeError("the benchmark server did not start")
-
-
-def _stop_server(proc) -> None:
-    if proc.poll() is None:
-        proc.send_signal(signal.SIGTERM)
-        try:
-            proc.wait(timeout=60)
-        except subprocess.TimeoutExpired:
-            proc.kill()
+    args = ["--listen", "127.0.0.1:0", "--state", str(state), "--data-root", str(data_root),
+            "--max-jobs", "1"] + (["--workers", str(workers)] if workers else [])
+    return start_server(args, timeout=120)
 
 
 def _percentile(values, q: float) -> float:
@@ -173,7 +145,7 @@ def run_service_bench(*, fit_source, lookup_source, workdir=None, y: str = "cabi
                                 lookups=lookups, clients=clients,
                                 lookups_per_client=lookups_per_client, seed=seed, log=log))
     finally:
-        _stop_server(proc)
+        stop_server(proc)
         if own:
             import shutil
             shutil.rmtree(work, ignore_errors=True)

@@ -18,11 +18,8 @@ Everything is written under the work dir (default: a temp dir, removed after).
 from __future__ import annotations
 
 import argparse
-import json
-import os
 import secrets
 import shutil
-import signal
 import subprocess
 import sys
 import tempfile
@@ -34,6 +31,7 @@ sys.path[:0] = [str(ROOT / "service"), str(ROOT / "client")]
 
 from trendmill._progress import ProgressBar  # noqa: E402
 from trendmill.demo import generate_fleet  # noqa: E402
+from trendmill.service.launch import start_server, stop_server  # noqa: E402
 from trendmill_client import Client, FitSpec  # noqa: E402
 
 DAY_S = 86_400
@@ -41,36 +39,11 @@ DAY_S = 86_400
 
 def start_service(workdir: Path, data_root: Path, token_file: Path) -> tuple[subprocess.Popen, str]:
     """Start ``trendmill serve`` on a free loopback port; returns (process, address)."""
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join(
-        [str(ROOT / "service"), str(ROOT / "client"), os.environ.get("PYTHONPATH", "")]))
-    proc = subprocess.Popen(
-        [sys.executable, "-m", "trendmill", "serve", "--listen", "127.0.0.1:0",
-         "--state", str(workdir / "state"), "--data-root", str(data_root),
-         "--token-file", str(token_file)],
-        stderr=subprocess.PIPE, text=True, env=env)
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        line = proc.stderr.readline()
-        if not line:
-            break
-        try:
-            event = json.loads(line)
-        except ValueError:
-            continue
-        if event.get("event") == "serving":
-            return proc, event["address"]
-    proc.kill()
-    raise SystemExit("demo: the service did not start:\n" + (proc.stderr.read() or ""))
-
-
-def stop_service(proc: subprocess.Popen) -> None:
-    if proc.poll() is None:
-        proc.send_signal(signal.SIGTERM)
-        try:
-            proc.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+    try:
+        return start_server(["--listen", "127.0.0.1:0", "--state", str(workdir / "state"),
+                             "--data-root", str(data_root), "--token-file", str(token_file)])
+    except RuntimeError as exc:
+        raise SystemExit(f"demo: {exc}") from None
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -146,7 +119,7 @@ def main(argv: list[str] | None = None) -> int:
                       f"is predicted at {p.mean:+.2f} degC ({round(pred.confidence * 100)}% "
                       f"prediction interval {p.prediction_low:+.2f} .. {p.prediction_high:+.2f})")
         finally:
-            stop_service(proc)
+            stop_server(proc)
             print("6. stopped the service")
     finally:
         if not args.workdir:

@@ -3,19 +3,14 @@
 from __future__ import annotations
 
 import json
-import os
-import signal
-import subprocess
-import sys
-import time
 from pathlib import Path
 
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
-import pytest
 
 from service_fixtures import *  # noqa: F401,F403
 from trendmill.cli import main
+from trendmill.service import launch
 
 REPO = Path(__file__).resolve().parent.parent
 FIT = ["--y", "cabinet_temp_c", "--x", "ts", "--x", "ambient_temp_c", "--by", "freezer_id",
@@ -93,32 +88,14 @@ def test_cli_errors_are_one_line(server, capsys, tmp_path, fleet):
     assert rc == 2 and "UNAVAILABLE" in err and err.count("\n") == 1
 
 
-def _start_serve(args, env):
-    proc = subprocess.Popen([sys.executable, "-m", "trendmill", "serve", *args],
-                            stderr=subprocess.PIPE, text=True, env=env)
-    lines = []
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        line = proc.stderr.readline()
-        if not line:
-            break
-        lines.append(line)
-        event = json.loads(line)
-        if event["event"] == "serving":
-            return proc, event["address"], lines
-    proc.kill()
-    raise AssertionError("server did not start: " + "".join(lines))
-
-
 def test_serve_command_with_token_then_sigterm(tmp_path, data_root, fleet, capsys):
     token = tmp_path / "token"
     token.write_text("s3cret\n")
     token.chmod(0o600)
-    env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(REPO / "service"),
-                                                       str(REPO / "client")]))
-    proc, address, lines = _start_serve(
+    lines: list[str] = []
+    proc, address = launch.start_server(
         ["--listen", "127.0.0.1:0", "--state", str(tmp_path / "state"), "--data-root",
-         str(data_root), "--token-file", str(token), "--workers", "1"], env)
+         str(data_root), "--token-file", str(token), "--workers", "1"], log=lines)
     try:
         out = tmp_path / "r.parquet"
         rc, _, err = _run(capsys, "fit", fleet, "--y", "cabinet_temp_c", "--x", "ts",
@@ -129,10 +106,8 @@ def test_serve_command_with_token_then_sigterm(tmp_path, data_root, fleet, capsy
         assert rc == 0, err
         assert pq.read_table(out).num_rows == 1
     finally:
-        proc.send_signal(signal.SIGTERM)
-        rest = proc.stderr.read()
-        assert proc.wait(timeout=60) == 0
-    events = [json.loads(l) for l in lines + rest.splitlines() if l.strip()]
+        assert launch.stop_server(proc) == 0       # SIGTERM: a clean stop
+    events = [json.loads(l) for l in lines if l.strip()]
     states = [e["state"] for e in events if e["event"] == "job_state"]
     assert states == ["QUEUED", "RUNNING", "SUCCEEDED"]
     assert events[-1]["event"] == "stopped"

@@ -14,6 +14,8 @@ import pyarrow as pa
 from google.protobuf import duration_pb2, timestamp_pb2
 
 from trendmill_client._proto import jobs_pb2, models_pb2, results_pb2, spec_pb2
+# key values travel the same way both directions: one codec, the client's
+from trendmill_client._types import value_to_proto
 
 from ..engine.errors import SpecError
 from ..engine.spec import FitSpec
@@ -166,27 +168,6 @@ def version_to_proto(v: VersionRecord) -> models_pb2.ModelVersion:
 
 
 # -- result values ------------------------------------------------------------
-def value_to_proto(value) -> results_pb2.Value:
-    """Message of one key value as Arrow's ``as_py`` gives it (None = null)."""
-    if value is None:
-        return results_pb2.Value()
-    if isinstance(value, bool):
-        return results_pb2.Value(bool_value=value)
-    if isinstance(value, int):
-        return results_pb2.Value(int_value=value)
-    if isinstance(value, str):
-        return results_pb2.Value(string_value=value)
-    if isinstance(value, float):
-        return results_pb2.Value(double_value=value)
-    if isinstance(value, dt.datetime):
-        ts = timestamp_pb2.Timestamp()
-        ts.FromDatetime(value if value.tzinfo else value.replace(tzinfo=dt.timezone.utc))
-        return results_pb2.Value(timestamp_value=ts)
-    if isinstance(value, dt.date):
-        return results_pb2.Value(date_value=value.isoformat())
-    return results_pb2.Value(string_value=str(value))
-
-
 def _key_value(v: results_pb2.Value, typ: pa.DataType, column: str, i: int):
     """Python value of one key message for a key column of Arrow type ``typ``."""
     field = f"key[{i}]"
