@@ -52,8 +52,9 @@ nanoseconds, an integer past 64 bits) are errors.
 Nulls follow SQL's three-valued logic: a comparison, IN or BETWEEN with a null
 value is null, NOT null is null, and a row is kept only when the whole filter
 is true. So ``x != 3`` and ``x NOT IN (1, 2)`` both drop rows where ``x`` is
-null; write ``OR x IS NULL`` to keep them. NaN is a value, not a null: every
-comparison with NaN is false, and NaN IS NULL is false.
+null; write ``OR x IS NULL`` to keep them. In a float column NaN counts as null
+(no reading), as it does in the fit: ``x IS NULL`` selects it, comparisons with it
+are unknown.
 
 Limits: 10,000 characters, 64 nested levels of parentheses and NOT, and
 10,000 values in one IN list. Control characters are refused; tab, newline and
@@ -626,6 +627,20 @@ class _Compiler:
         hint = f"; did you mean {close[0]!r}?" if close else ""
         raise FilterError(f"column {name!r} not in schema (have: {have or 'no columns'}){hint}")
 
+    def ref(self, name: str) -> pc.Expression:
+        """A column as an expression; in a float column NaN reads as null.
+
+        NaN is "no reading" here, as in the fit, which skips it like a null. It also
+        keeps answers independent of row-group pruning: Parquet statistics leave NaN
+        out, so ``NOT (x < 0)`` pruned on them would disagree with the same filter
+        evaluated row by row if NaN were an ordinary value.
+        """
+        t = self.type_of(name)
+        if pa.types.is_floating(t):
+            x = pc.field(name)
+            return pc.if_else(pc.Expression._call("is_nan", [x]), pc.scalar(pa.scalar(None, t)), x)
+        return pc.field(name)
+
     def check(self, col: Column, lit: Literal) -> None:
         t = self.type_of(col.name)
         fam, lit_fam = _family(t), _family(lit.value)
@@ -640,14 +655,14 @@ class _Compiler:
             if _family(ta) is None or _family(ta) != _family(tb):
                 raise FilterError(f"cannot compare column {a.name!r} of type {ta} "
                                   f"with column {b.name!r} of type {tb}")
-            return pc.field(a.name), pc.field(b.name)
+            return self.ref(a.name), self.ref(b.name)
         if isinstance(b, Column):
             eb, ea = self.pair(b, a)
             return ea, eb
         if isinstance(a, Column):
             self.check(a, b)
             t = self.type_of(a.name)
-            return pc.field(a.name), pc.scalar(_value_array([b.value], a.name, t)[0])
+            return self.ref(a.name), pc.scalar(_value_array([b.value], a.name, t)[0])
         if _family(a.value) != _family(b.value):
             raise FilterError(f"cannot compare {_describe(a)} with {_describe(b)}")
         return _operand_expr(a), _operand_expr(b)
@@ -680,7 +695,8 @@ class _Compiler:
             inside = (low <= x) & (x <= high)
             return ~inside if node.negated else inside
         if isinstance(node, IsNull):
-            x = _operand_expr(node.operand)
+            x = (self.ref(node.operand.name) if isinstance(node.operand, Column)
+                 else _operand_expr(node.operand))
             return x.is_valid() if node.negated else x.is_null()
         if isinstance(node, InList):
             return self.in_list(node)
@@ -692,7 +708,7 @@ class _Compiler:
             for lit in node.values:
                 self.check(node.operand, lit)
             name = node.operand.name
-            x = pc.field(name)
+            x = self.ref(name)
             found = x.isin(_value_array(values, name, self.type_of(name)))
             # is_in says false for a null input; keep SQL's null so that NOT IN drops it too.
             found = pc.if_else(x.is_valid(), found, pc.scalar(pa.scalar(None, pa.bool_())))
