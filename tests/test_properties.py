@@ -113,7 +113,8 @@ def assert_tables_close(got: pa.Table, want: pa.Table, *, rtol: float, label: st
     Rounding differs between layouts, and a value formed by cancellation keeps only
     absolute digits: an estimate or interval end is compared to rtol * (|value| + SE),
     t, R², adjusted R² and F to rtol * (|value| + 1), a p-value to rtol * p * (1 + t²)
-    (d log p / dt grows like t in the tail), a covariance entry to rtol * sqrt(S_ii S_jj).
+    (d log p / dt grows like t in the tail), a covariance entry to rtol * sqrt(S_ii S_jj),
+    a feature mean to rtol * (|value| + the column's largest mean + 1).
     """
     assert got.column_names == want.column_names, label
     names = got.column_names
@@ -137,6 +138,8 @@ def assert_tables_close(got: pa.Table, want: pa.Table, *, rtol: float, label: st
             floor = np.abs(w[f"{term}_std_error"].to_numpy())
         elif name.endswith("_t_value") or name in ("r_squared", "adj_r_squared", "f_statistic"):
             floor = 1.0
+        elif name.endswith("_mean"):    # a feature mean keeps digits of the column's scale
+            floor = np.nanmax(np.abs(wb)) + 1.0
         else:
             floor = 0.0
         tol = rtol * (np.abs(wb) + floor)

@@ -161,3 +161,40 @@ def test_naive_float_seconds_would_fail():
     naive = (n * np.sum(x * y) - np.sum(x) * np.sum(y)) / (n * np.sum(x * x) - np.sum(x) ** 2)
     # (measured: ~1e-4 relative error, five orders of magnitude outside RTOL)
     assert abs(naive - ref["slope"]) / abs(ref["slope"]) > 1e3 * RTOL
+
+
+@pytest.mark.parametrize("solver", ["normal", "qr"])
+def test_prediction_intervals_at_epoch_scale_timestamps(tmp_path, solver):
+    # The intercept of a timestamp fit sits at 1970, so d V d^T for a point in the
+    # data cancels ~8 digits; the prediction is centred on the stored feature means.
+    # Reference: statsmodels OLS get_prediction on exactly shifted seconds.
+    import statsmodels.api as sm
+    from trendmill.engine.predict import predict
+
+    rng = np.random.default_rng(41)
+    keys, stamps, temps = _hour_groups(rng, 3, 400, NS)
+    table = pa.table({"freezer": keys, "ts": pa.array(stamps, pa.timestamp("ns")),
+                      "cabinet_temp_c": temps})
+    path = write_parquet(tmp_path / "ts.parquet", table)
+    rows = rows_by_key(fit(path, "cabinet_temp_c", "ts", by=("freezer",), solver=solver), ["freezer"])
+    keys_np = np.array(keys)
+    for (key,), row in rows.items():
+        idx = np.nonzero(keys_np == key)[0]
+        ints = np.array([stamps[i] for i in idx], dtype=np.int64)
+        x0 = int(ints[0])
+        ols = sm.OLS(temps[idx], sm.add_constant((ints - x0) / NS)).fit()
+        at = ints[[10, 200, 390]]
+        got = predict(((at - x0) / NS + x0 / NS)[:, None],
+                      estimates=[row["intercept_estimate"], row["ts_estimate"]],
+                      covariance=row["covariance"], residual_std_error=row["residual_std_error"],
+                      df_residual=row["df_residual"], confidence=0.95,
+                      feature_means=[row["ts_mean"]], weight_sum=row["weight_sum"])
+        want = ols.get_prediction(sm.add_constant((at - x0) / NS, has_constant="add")) \
+                  .summary_frame(alpha=0.05)
+        err = f"group {key} ({solver})"
+        # A query point in float seconds near 1.7e9 is itself rounded by ~2e-7 s, which
+        # moves the mean by |slope| * 2e-7: 1e-10 relative is what the inputs allow.
+        np.testing.assert_allclose(got.mean, want["mean"], rtol=1e-10, err_msg=err)
+        # without centring this is ~1e-7 (d V d^T cancels against the epoch intercept)
+        np.testing.assert_allclose(got.mean_std_error, want["mean_se"], rtol=1e-10, err_msg=err)
+        np.testing.assert_allclose(got.prediction_high, want["obs_ci_upper"], rtol=1e-10, err_msg=err)

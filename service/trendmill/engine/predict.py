@@ -42,7 +42,8 @@ class Prediction:
 
 
 def predict(x, *, estimates, covariance, residual_std_error: float,
-            df_residual: int, confidence: float, intercept: bool = True) -> Prediction:
+            df_residual: int, confidence: float, intercept: bool = True,
+            feature_means=None, weight_sum: float | None = None) -> Prediction:
     """Predict y at the rows of ``x`` from one group's fit.
 
     Parameters
@@ -61,6 +62,13 @@ def predict(x, *, estimates, covariance, residual_std_error: float,
         Level of both intervals, in (0, 1).
     intercept : bool
         Whether ``estimates`` starts with an intercept.
+    feature_means : array_like, shape (p,), optional
+        The group's weighted feature means; with ``weight_sum`` and an intercept the
+        variance of the mean is taken as ``s²/W + (x - m) V_x (x - m)ᵀ``, which does
+        not cancel when the features sit far from zero (timestamps in seconds
+        since 1970 lose ~8 digits in ``d V dᵀ``).
+    weight_sum : float, optional
+        The group's sum of weights W.
 
     Raises
     ------
@@ -88,16 +96,26 @@ def predict(x, *, estimates, covariance, residual_std_error: float,
         raise SpecError("df_residual", f"{df_residual} degrees of freedom, need at least 1")
     if not (np.isfinite(b).all() and np.isfinite(v).all() and math.isfinite(s)):
         raise SpecError("estimates", "the fit has non-finite coefficients or covariance")
-    return _predict(pts, b, v, s, int(df_residual), c, intercept)
+    centre = None
+    if intercept and feature_means is not None and weight_sum is not None:
+        m = np.asarray(feature_means, dtype=np.float64).reshape(-1)
+        if m.shape[0] == p and np.isfinite(m).all() and float(weight_sum) > 0:
+            centre = (m, float(weight_sum))
+    return _predict(pts, b, v, s, int(df_residual), c, intercept, centre)
 
 
 def _predict(pts: np.ndarray, b: np.ndarray, v: np.ndarray, s: float, df: int,
-             confidence: float, intercept: bool) -> Prediction:
+             confidence: float, intercept: bool, centre=None) -> Prediction:
     """`predict` without the input validation."""
     d = np.hstack([np.ones((pts.shape[0], 1)), pts]) if intercept else pts
     mean = d @ b
-    # d V dᵀ row by row; clip the tiny negatives rounding can give.
-    var_mean = np.maximum(np.einsum("ij,jk,ik->i", d, v, d), 0.0)
+    if centre is not None:
+        m, w = centre
+        dc = pts - m
+        var_mean = s * s / w + np.einsum("ij,jk,ik->i", dc, v[1:, 1:], dc)
+    else:
+        # d V dᵀ row by row; clip the tiny negatives rounding can give.
+        var_mean = np.maximum(np.einsum("ij,jk,ik->i", d, v, d), 0.0)
     se_mean = np.sqrt(var_mean)
     se_pred = np.sqrt(var_mean + s * s)
     t = float(special.stdtrit(df, 0.5 + confidence / 2.0))

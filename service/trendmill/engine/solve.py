@@ -60,6 +60,8 @@ class GroupFits:
     f_statistic: np.ndarray
     f_p_value: np.ndarray
     condition_number: np.ndarray
+    feature_mean: np.ndarray    # (G, p) weighted means of the features (true coordinates)
+    weight_sum: np.ndarray      # (G,) sum of weights (= rows without weights)
 
 
 def _tri_inverse(u: np.ndarray) -> np.ndarray:
@@ -297,4 +299,4 @@ def _solve(m: Moments, features, intercept, shift, confidence, solver) -> GroupF
         t_value=t, p_value=pval, ci_low=est - half, ci_high=est + half, covariance=cov,
         r_squared=r2, adj_r_squared=adj, residual_std_error=rse,
         df_residual=np.where(unusable, 0, df).astype(np.int64), f_statistic=f, f_p_value=fp,
-        condition_number=cond)
+        condition_number=cond, feature_mean=m.mean[:, :p] + shift[:p], weight_sum=m.w.copy())

@@ -9,9 +9,15 @@ from dataclasses import asdict, dataclass, field
 
 from .errors import SpecError
 
-__all__ = ["FitSpec", "SOLVERS", "MAX_FEATURES"]
+__all__ = ["FitSpec", "SOLVERS", "MAX_FEATURES", "RESULT_COLUMNS"]
 
 SOLVERS = ("normal", "qr")
+#: columns every result file has; a group key of the same name would be shadowed
+RESULT_COLUMNS = frozenset({
+    "n_rows", "status", "r_squared", "adj_r_squared", "residual_std_error", "df_residual",
+    "f_statistic", "f_p_value", "condition_number", "n_skipped", "n_infinite", "covariance",
+    "weight_sum"})
+_TERM_FIELDS = ("estimate", "std_error", "t_value", "p_value", "ci_low", "ci_high", "mean")
 #: more features than this is almost always a mistake (one-hot gone wrong) and
 #: makes the per-group state (features^2) large; the service can lower it.
 MAX_FEATURES = 64
@@ -92,6 +98,13 @@ class FitSpec:
                 raise SpecError("by", f"column {name!r} is also used as y, x or weight")
         if len(set(self.by)) != len(self.by):
             raise SpecError("by", "a group key column is listed twice")
+        if "intercept" in x:
+            raise SpecError("x", "a feature cannot be called 'intercept' (the name of the "
+                                 "intercept term in results)")
+        per_term = {f"{t}_{f}" for t in ("intercept",) + x for f in _TERM_FIELDS}
+        for name in self.by:
+            if name in RESULT_COLUMNS or name in per_term:
+                raise SpecError("by", f"column {name!r} has the name of a result column")
         if self.weight is not None and (self.weight == self.y or self.weight in x):
             raise SpecError("weight", f"column {self.weight!r} is also y or a feature")
         if not isinstance(self.intercept, bool):

@@ -34,6 +34,11 @@ def fits_table(keys: pa.Table, fits: GroupFits, *, skipped: np.ndarray,
     for stat in STAT_COLUMNS:
         typ = pa.int64() if stat == "df_residual" else pa.float64()
         cols[stat] = pa.array(getattr(fits, stat), typ)
+    # what prediction needs to centre its variance (see engine.predict)
+    features = fits.terms[1:] if fits.terms and fits.terms[0] == "intercept" else fits.terms
+    for j, name in enumerate(features):
+        cols[f"{name}_mean"] = pa.array(fits.feature_mean[:, j], pa.float64())
+    cols["weight_sum"] = pa.array(fits.weight_sum, pa.float64())
     cols["n_skipped"] = pa.array(skipped, pa.int64())
     cols["n_infinite"] = pa.array(infinite, pa.int64())
     k = len(fits.terms)

@@ -388,7 +388,10 @@ class ResultsServicer(results_pb2_grpc.ResultsServicer):
             estimates=[row[f"{t}_estimate"] for t in spec.terms],
             covariance=row["covariance"], residual_std_error=row["residual_std_error"],
             df_residual=int(row["df_residual"]), confidence=confidence,
-            intercept=spec.intercept)
+            intercept=spec.intercept,
+            feature_means=([row[f"{x}_mean"] for x in spec.x]
+                           if all(f"{x}_mean" in row for x in spec.x) else None),
+            weight_sum=row.get("weight_sum"))
         return results_pb2.PredictResponse(
             predictions=[results_pb2.Prediction(
                 mean=pred.mean[j], mean_std_error=pred.mean_std_error[j],
