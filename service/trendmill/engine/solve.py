@@ -165,134 +165,137 @@ def solve_moments(m: Moments, *, features: tuple[str, ...], intercept: bool = Tr
     return _solve(m, features, intercept, shift, confidence, solver)
 
 
+def _column_scale(m: Moments, cross: np.ndarray, intercept: bool, p: int):
+    """Squared column norms of the system, which features are not constant, and their scale."""
+    if m.form == "qr":
+        col_sq = np.einsum("gij,gij->gj", cross, cross)
+    else:
+        col_sq = np.diagonal(cross, axis1=1, axis2=2).copy()
+    sq_x = np.maximum(col_sq[:, :p], 0.0)
+    if intercept:
+        # constant within the group: a spread at the rounding level of its mean
+        keep = sq_x > m.w[:, None] * (_CONSTANT_RTOL * np.abs(m.mean[:, :p])) ** 2
+    else:
+        keep = sq_x > 0
+    return col_sq, keep, np.where(keep, np.sqrt(sq_x), 1.0)
+
+
+def _reduce_qr(cross, keep, scale, tol):
+    """R factor -> (U, rhs, SSE, keep): column-scaled, aliased columns re-triangularised away."""
+    p = keep.shape[1]
+    full_scale = np.concatenate([scale, np.ones((len(scale), 1))], axis=1)
+    r_aug = cross / full_scale[:, None, :]
+    # kept iff its distance from the span of the earlier columns is resolvable;
+    # that distance does not change when earlier aliased columns are dropped
+    keep = keep & (np.abs(np.diagonal(r_aug, axis1=1, axis2=2)[:, :p]) > tol)
+    r_aug = _embed_kept(r_aug, keep)
+    return r_aug[:, :p, :p], r_aug[:, :p, p], r_aug[:, p, p] ** 2, keep
+
+
+def _reduce_normal(m, cross, keep, scale, tol, intercept, shift):
+    """Co-moment matrix -> (U, rhs, SSE, keep) by equilibrated order-preserving Cholesky."""
+    g, p = keep.shape
+    full_scale = np.concatenate([scale, np.ones((g, 1))], axis=1)
+    a_full = cross / (full_scale[:, :, None] * full_scale[:, None, :])
+    # constant (aliased) features: identity rows/columns
+    a = np.where(keep[:, :, None] & keep[:, None, :], a_full[:, :p, :p], 0.0)
+    idx = np.arange(p)
+    a[:, idx, idx] = np.where(keep, a[:, idx, idx], 1.0)
+    upper, keep = _cholesky_dropping(a, keep, tol)
+    b = np.where(keep, a_full[:, :p, p], 0.0)
+    rhs = np.zeros((g, p))      # forward substitution L u = b (L = U^T)
+    for j in range(p):
+        rhs[:, j] = (b[:, j] - np.einsum("gk,gk->g", upper[:, :j, j], rhs[:, :j])) / upper[:, j, j]
+    # SSE from the centred state and the solution, e^T C e (+ W (m_y - m_x^T b)^2
+    # without intercept), e = (-b, 1): no uncentred sums, and rounding in b enters
+    # only to second order (C_yy - u^T u would cancel when R^2 is near 1).
+    b_full = np.where(keep, np.einsum("gij,gj->gi", _tri_inverse(upper), rhs) / scale, 0.0)
+    e = np.concatenate([-b_full, np.ones((g, 1))], axis=1)
+    sse = np.einsum("gi,gij,gj->g", e, m.cross, e)
+    if not intercept:
+        sse = sse + m.w * np.einsum("gj,gj->g", e, m.mean + shift) ** 2
+    return upper, rhs, sse, keep
+
+
+def _condition(upper: np.ndarray) -> np.ndarray:
+    """kappa_2 of U^T U (the scaled cross-product matrix) per group."""
+    g, p, _ = upper.shape
+    if p == 1:      # a 1x1 equilibrated matrix is perfectly conditioned
+        return np.ones(g)
+    sv = np.linalg.svd(upper, compute_uv=False) if g else np.zeros((0, p))
+    return (sv[:, 0] / sv[:, -1]) ** 2
+
+
+def _statuses(features, keep, n, df, k_full, cond, ill_limit) -> np.ndarray:
+    """One status per group, the most serious first: no_rows > too_few_rows > rank_deficient
+    > exactly_determined > ill_conditioned > ok."""
+    status = np.full(len(n), STATUS_OK, dtype=object)
+    status[cond > ill_limit] = "ill_conditioned"
+    status[df == 0] = "exactly_determined"
+    names = np.array(features, dtype=object)
+    for gi in np.nonzero(~keep.all(axis=1))[0]:
+        status[gi] = "rank_deficient:" + ",".join(names[~keep[gi]])
+    status[n < k_full] = "too_few_rows"
+    status[n == 0] = "no_rows"
+    return status
+
+
 def _solve(m: Moments, features, intercept, shift, confidence, solver) -> GroupFits:
     g, d = m.mean.shape
     p = d - 1
     tol, ill_limit = TOLERANCES[solver]
     cross = m.cross if intercept else uncentred(m, shift)
-    err = np.errstate(divide="ignore", invalid="ignore", over="ignore")
-    err.__enter__()
-    try:
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        col_sq, keep, scale = _column_scale(m, cross, intercept, p)
         if m.form == "qr":
-            col_sq = np.einsum("gij,gij->gj", cross, cross)
+            upper, rhs, sse, keep = _reduce_qr(cross, keep, scale, tol)
         else:
-            col_sq = np.diagonal(cross, axis1=1, axis2=2).copy()
-        sq_x = np.maximum(col_sq[:, :p], 0.0)
-        if intercept:
-            spread_floor = m.w[:, None] * (_CONSTANT_RTOL * np.abs(m.mean[:, :p])) ** 2
-            keep = sq_x > spread_floor
-        else:
-            keep = sq_x > 0
-        scale = np.where(keep, np.sqrt(sq_x), 1.0)
-        # equilibrate the feature block, keep y in its own units
-        full_scale = np.concatenate([scale, np.ones((g, 1))], axis=1)
-        if m.form == "qr":
-            r_aug = cross / full_scale[:, None, :]
-            # kept iff its distance from the span of the earlier columns is resolvable;
-            # that distance does not change when earlier aliased columns are dropped
-            keep &= np.abs(np.diagonal(r_aug, axis1=1, axis2=2)[:, :p]) > tol
-            r_aug = _embed_kept(r_aug, keep)
-            upper = r_aug[:, :p, :p]
-            rhs = r_aug[:, :p, p]
-            sse = r_aug[:, p, p] ** 2
-        else:
-            a_full = cross / (full_scale[:, :, None] * full_scale[:, None, :])
-            a = a_full[:, :p, :p].copy()
-            b = a_full[:, :p, p]
-            # constant (aliased) features: identity rows/columns
-            a = np.where(keep[:, :, None] & keep[:, None, :], a, 0.0)
-            idx = np.arange(p)
-            a[:, idx, idx] = np.where(keep, a[:, idx, idx], 1.0)
-            upper, keep = _cholesky_dropping(a, keep, tol)
-            b = np.where(keep, b, 0.0)
-            # forward substitution L u = b (L = U^T)
-            rhs = np.zeros((g, p))
-            for j in range(p):
-                rhs[:, j] = (b[:, j] - np.einsum("gk,gk->g", upper[:, :j, j], rhs[:, :j])) / upper[:, j, j]
-            sse = a_full[:, p, p] - np.einsum("gj,gj->g", rhs, rhs)
-            # The residual sum of squares from the centred state and the solution,
-            # SSE = e^T C e (+ W (m_y - m_x^T b)^2 without intercept), e = (-b, 1):
-            # no uncentred sums, and rounding in b enters only to second order.
-            b_full = np.where(keep, np.einsum("gij,gj->gi", _tri_inverse(upper), rhs) / scale, 0.0)
-            e = np.concatenate([-b_full, np.ones((g, 1))], axis=1)
-            ce = np.einsum("gij,gj->gi", m.cross, e)
-            sse = np.einsum("gi,gi->g", e, ce)
-            if not intercept:
-                sse = sse + m.w * np.einsum("gj,gj->g", e, m.mean + shift) ** 2
+            upper, rhs, sse, keep = _reduce_normal(m, cross, keep, scale, tol, intercept, shift)
         sse = np.maximum(sse, 0.0)
+        sst = col_sq[:, p]      # C_yy, or the uncentred sum of squares without intercept
         uinv = _tri_inverse(upper)
-        beta_s = np.einsum("gij,gj->gi", uinv, rhs)
-        ainv = uinv @ np.swapaxes(uinv, -1, -2)
-        if p == 1:      # a 1x1 equilibrated matrix is perfectly conditioned
-            cond = np.ones(g)
-        else:
-            sv = np.linalg.svd(upper, compute_uv=False) if g else np.zeros((0, p))
-            cond = (sv[:, 0] / sv[:, -1]) ** 2
+        both = keep[:, :, None] & keep[:, None, :]
+        beta = np.where(keep, np.einsum("gij,gj->gi", uinv, rhs) / scale, np.nan)
+        xinv = np.where(both, (uinv @ np.swapaxes(uinv, -1, -2)) / (scale[:, :, None] * scale[:, None, :]), 0.0)
+        cond = _condition(upper)
 
-        beta = np.where(keep, beta_s / scale, np.nan)
-        xinv = ainv / (scale[:, :, None] * scale[:, None, :])
-        xinv = np.where(keep[:, :, None] & keep[:, None, :], xinv, 0.0)
-
-        rank = keep.sum(axis=1)
-        k = rank + (1 if intercept else 0)
-        k_full = p + (1 if intercept else 0)
         n = m.n
+        k = keep.sum(axis=1) + (1 if intercept else 0)
+        k_full = p + (1 if intercept else 0)
         df = n - k
         sigma2 = np.where(df > 0, sse / np.maximum(df, 1), np.nan)
         cov_x = sigma2[:, None, None] * xinv
         if intercept:
-            mx = m.mean[:, :p] + shift[:p]
-            my = m.mean[:, p] + shift[p]
-            beta0 = my - np.einsum("gj,gj->g", np.where(keep, mx, 0.0), np.where(keep, beta, 0.0))
-            cm = np.einsum("gij,gj->gi", cov_x, np.where(keep, mx, 0.0))
-            var0 = sigma2 / m.w + np.einsum("gj,gj->g", np.where(keep, mx, 0.0), cm)
+            # intercept = m_y - m_x^T beta, at x = 0 in true coordinates
+            mx = np.where(keep, m.mean[:, :p] + shift[:p], 0.0)
+            beta0 = m.mean[:, p] + shift[p] - np.einsum("gj,gj->g", mx, np.where(keep, beta, 0.0))
+            cm = np.einsum("gij,gj->gi", cov_x, mx)
             est = np.concatenate([beta0[:, None], beta], axis=1)
             cov = np.zeros((g, p + 1, p + 1))
-            cov[:, 0, 0] = var0
-            cov[:, 0, 1:] = -cm
-            cov[:, 1:, 0] = -cm
+            cov[:, 0, 0] = sigma2 / m.w + np.einsum("gj,gj->g", mx, cm)
+            cov[:, 0, 1:] = cov[:, 1:, 0] = -cm
             cov[:, 1:, 1:] = cov_x
             kept_terms = np.concatenate([np.ones((g, 1), bool), keep], axis=1)
-            sst = cross[:, p, p] if m.form == "comoment" else col_sq[:, p]
         else:
             est, cov, kept_terms = beta, cov_x, keep
-            sst = col_sq[:, p]
-        cov = np.where(kept_terms[:, :, None] & kept_terms[:, None, :], cov, np.nan)
+        unusable = n < k_full
+        cov = np.where(kept_terms[:, :, None] & kept_terms[:, None, :] & ~unusable[:, None, None],
+                       cov, np.nan)
+        est = np.where(unusable[:, None], np.nan, est)
         se = np.sqrt(np.diagonal(cov, axis1=1, axis2=2))
         t = est / se
-        dff = df.astype(float)
-        pval = 2.0 * special.stdtr(np.where(df > 0, dff, np.nan)[:, None], -np.abs(t))
-        tcrit = _t_quantiles(df, 0.5 + confidence / 2.0)
-        half = tcrit[:, None] * se
-        r2 = 1.0 - sse / sst
+        df_ok = np.where(df > 0, df, np.nan).astype(float)
+        pval = 2.0 * special.stdtr(df_ok[:, None], -np.abs(t))
+        half = _t_quantiles(df, 0.5 + confidence / 2.0)[:, None] * se
+        r2 = np.where(unusable, np.nan, 1.0 - sse / sst)
         df_model = k - (1 if intercept else 0)
-        n_eff = n - (1 if intercept else 0)
-        adj = 1.0 - (n_eff / np.where(df > 0, dff, np.nan)) * (1.0 - r2)
-        f = ((sst - sse) / df_model) / sigma2
-        f = np.where(df_model > 0, f, np.nan)
-        fp = special.fdtrc(np.where(df_model > 0, df_model, np.nan), np.where(df > 0, dff, np.nan), f)
-        rse = np.sqrt(sigma2)
-
-        status = np.full(g, STATUS_OK, dtype=object)
-        status[cond > ill_limit] = "ill_conditioned"
-        status[df == 0] = "exactly_determined"
-        names = np.array(features, dtype=object)
-        for gi in np.nonzero(~keep.all(axis=1))[0]:
-            status[gi] = "rank_deficient:" + ",".join(names[~keep[gi]])
-        unusable = n < k_full
-        status[unusable] = "too_few_rows"
-        status[n == 0] = "no_rows"
-        nan_all = unusable[:, None]
-        est = np.where(nan_all, np.nan, est)
-        for arr in (se, t, pval):
-            arr[unusable] = np.nan
-        cov[unusable] = np.nan
         stat_nan = unusable | (df <= 0)
-        r2 = np.where(unusable, np.nan, r2)
-        adj, f, fp, rse = (np.where(stat_nan, np.nan, v) for v in (adj, f, fp, rse))
+        adj = 1.0 - ((n - (1 if intercept else 0)) / df_ok) * (1.0 - r2)
+        f = np.where(df_model > 0, ((sst - sse) / df_model) / sigma2, np.nan)
+        fp = special.fdtrc(np.where(df_model > 0, df_model, np.nan), df_ok, f)
+        adj, f, fp, rse = (np.where(stat_nan, np.nan, v) for v in (adj, f, fp, np.sqrt(sigma2)))
+        status = _statuses(features, keep, n, df, k_full, cond, ill_limit)
         cond = np.where(unusable, np.nan, cond)
-    finally:
-        err.__exit__(None, None, None)
     terms = (("intercept",) if intercept else ()) + tuple(features)
     return GroupFits(
         terms=terms, n_rows=n.copy(), status=status, estimate=est, std_error=se,
