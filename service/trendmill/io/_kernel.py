@@ -45,8 +45,8 @@ def _batch_means(codes, z, w, use_w, slot, skipped, infinite):
     """Pass 1: batch-local slots of the groups present, their counts, weight sums and means.
 
     ``slot`` (>= groups, all -1) maps a group to its slot in this batch, so scratch
-    space grows with the groups of the batch, not of the partition; the caller
-    resets it. Returns (member slot per row or -1, slot -> group, cnt, wsum, mean,
+    space grows with the groups of the batch, not of the partition; it is all -1
+    again on return. Returns (member slot per row or -1, slot -> group, cnt, wsum, mean,
     number of negative/infinite weights).
     """
     d, n = z.shape
@@ -99,6 +99,7 @@ def _batch_means(codes, z, w, use_w, slot, skipped, infinite):
             acc[k, j] += wi * (z[j, i] - first[k, j])
     mean = np.empty((used, d))
     for k in range(used):
+        slot[group_of[k]] = -1      # back to all -1 for the next batch
         for j in range(d):
             mean[k, j] = first[k, j] + acc[k, j] / wsum[k]
     return member, group_of[:used], cnt[:used], wsum[:used], mean, bad
@@ -233,8 +234,6 @@ def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipp
     """
     d, n = z.shape
     member, group_of, cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, slot, skipped, infinite)
-    for k in range(group_of.shape[0]):
-        slot[group_of[k]] = -1
     if bad:
         return bad
     used = group_of.shape[0]
@@ -290,8 +289,6 @@ def accumulate_qr(codes, z, w, use_w, n_tot, w_tot, mean_tot, r_tot, skipped, in
     """Merge one batch into the QR state (R^T R = C); same contract as accumulate_comoment."""
     d, n = z.shape
     member, group_of, cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, slot, skipped, infinite)
-    for k in range(group_of.shape[0]):
-        slot[group_of[k]] = -1
     if bad:
         return bad
     row = np.empty(d)
