@@ -153,7 +153,7 @@ def _run_service(case: Case, *, quick: bool) -> dict:
     from service_bench import run_service_bench
     try:
         return run_service_bench(fit_source=case.data.path, lookup_source=case.smalls[0].path,
-                                 repeats=2 if quick else 3, lookups=500 if quick else 5000,
+                                 repeats=2 if quick else 5, lookups=500 if quick else 5000,
                                  lookups_per_client=100 if quick else 1000, log=_log)
     except Exception as exc:
         traceback.print_exc()

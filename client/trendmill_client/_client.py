@@ -13,7 +13,7 @@ from __future__ import annotations
 import random
 import time
 import uuid
-from typing import Any, Callable, Iterator, Mapping, Sequence
+from typing import Any, Callable, Iterator, Sequence
 
 import grpc
 
@@ -212,17 +212,30 @@ class Client:
         """
         request = jobs_pb2.WatchFitJobRequest(name=_job_name(name))
         deadline = None if timeout is None else time.monotonic() + timeout
+        stream = self._stream(
+            lambda left: self._jobs.WatchFitJob(request, timeout=left, metadata=self._metadata),
+            deadline)
+        for event in stream:
+            job = FitJob.from_proto(event.job)
+            yield job
+            if job.done:
+                return
+
+    def _stream(self, open_call: Callable, deadline: float | None) -> Iterator:
+        """Messages of a server stream, reopened on UNAVAILABLE (with the usual retries).
+
+        ``open_call(timeout)`` starts the call anew, from wherever the consumer got
+        to; when the consumer stops early the call is cancelled, which frees the
+        server's stream.
+        """
         attempt = 0
         while True:
             left = None if deadline is None else max(deadline - time.monotonic(), 0.001)
-            call = self._jobs.WatchFitJob(request, timeout=left, metadata=self._metadata)
+            call = open_call(left)
             try:
-                for event in call:
+                for message in call:
                     attempt = 0
-                    job = FitJob.from_proto(event.job)
-                    yield job
-                    if job.done:
-                        return
+                    yield message
                 return
             except grpc.RpcError as exc:
                 if exc.code() == grpc.StatusCode.UNAVAILABLE and \
@@ -231,7 +244,7 @@ class Client:
                     continue
                 raise from_rpc_error(exc) from exc
             finally:
-                call.cancel()  # the caller may stop early: free the server's stream
+                call.cancel()
 
     def wait(self, name: str, *, timeout: float | None = None,
              on_progress: Callable[[FitJob], None] | None = None) -> FitJob:
@@ -298,30 +311,20 @@ class Client:
         if fmt is None:
             raise ValueError(f"format {format!r} is not 'arrow' or 'rows'")
         deadline = None if timeout is None else time.monotonic() + timeout
-        token, pages, attempt = page_token, 0, 0
-        while True:
+        token, pages = page_token, 0
+
+        def open_call(left):    # resumes at the page after the last one received
             request = results_pb2.ReadResultsRequest(
                 parent=_result_name(parent), page_size=page_size, page_token=token, format=fmt,
                 max_pages=max(max_pages - pages, 0) if max_pages else 0)
-            left = None if deadline is None else max(deadline - time.monotonic(), 0.001)
-            call = self._results.ReadResults(request, timeout=left, metadata=self._metadata)
-            try:
-                for page in call:
-                    attempt = 0
-                    yield page
-                    pages += 1
-                    token = page.next_page_token
-                    if not token:
-                        return
+            return self._results.ReadResults(request, timeout=left, metadata=self._metadata)
+
+        for page in self._stream(open_call, deadline):
+            yield page
+            pages += 1
+            token = page.next_page_token
+            if not token:
                 return
-            except grpc.RpcError as exc:
-                if exc.code() == grpc.StatusCode.UNAVAILABLE and \
-                        self._sleep_before_retry(attempt, deadline):
-                    attempt += 1
-                    continue
-                raise from_rpc_error(exc) from exc
-            finally:
-                call.cancel()
 
     def read_results(self, parent: str, *, page_size: int = 0,
                      timeout: float | None = None) -> Iterator[GroupFit]:
