@@ -9,6 +9,7 @@ infinite rows mixed in (which it must skip and count).
 from __future__ import annotations
 
 import numpy as np
+import pyarrow as pa
 import pytest
 
 from helpers import fit, write_parquet
@@ -158,3 +159,20 @@ def test_ints_to_float_is_one_rounding_of_the_exact_value():
     _kernel.ints_to_float(ints.astype(np.int64), origin, 1e9, out)
     want = np.array([float(Fraction(int(v) - origin, 10**9)) for v in ints])
     np.testing.assert_array_equal(out, want)
+
+
+def test_nan_weight_raises_but_null_weight_skips(tmp_path):
+    # The contract: a non-finite weight is an error; a NULL weight is a
+    # missing value like any other (the row is skipped and counted).
+    rng = np.random.default_rng(7)
+    n = 50
+    x, y = rng.normal(size=n), rng.normal(size=n)
+    weights = [1.0] * n
+    weights[3] = None
+    ok = write_parquet(tmp_path / "ok.parquet", {"x": x, "y": y, "w": pa.array(weights, pa.float64())})
+    row = fit(ok, "y", "x", weight="w").to_pylist()[0]
+    assert row["n_rows"] == n - 1 and row["n_skipped"] == 1
+    weights[3] = float("nan")
+    bad = write_parquet(tmp_path / "bad.parquet", {"x": x, "y": y, "w": pa.array(weights, pa.float64())})
+    with pytest.raises(DataError, match=r"weight: column 'w' has NaN values in .*bad\.parquet"):
+        fit(bad, "y", "x", weight="w")

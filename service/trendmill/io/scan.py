@@ -163,8 +163,14 @@ def scan_partition(task: ScanTask) -> PartitionMoments:
             _as_float(batch.column(col.name), col, z[j])
         w = empty_w
         if task.weighted:
+            wcol = batch.column(task.columns[d].name)
+            if pa.types.is_floating(wcol.type) and pc.any(pc.is_nan(wcol)).as_py():
+                # NULL is a missing weight (the row is skipped); NaN is a broken one
+                raise DataError(f"weight: column {task.columns[d].name!r} has NaN values in "
+                                f"{part.path!r}; weights must be finite and >= 0",
+                                column=task.columns[d].name, path=part.path)
             w = np.empty(n)
-            _as_float(batch.column(task.columns[d].name), task.columns[d], w)
+            _as_float(wcol, task.columns[d], w)
         bad = accumulate(codes, z, w, task.weighted, state.n, state.w, state.mean, state.cross,
                          state.skipped, state.infinite, state.slot)
         if bad:
