@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-import tempfile
+import secrets
 
 import numpy as np
 import pyarrow as pa
@@ -57,8 +57,9 @@ def write_results(table: pa.Table, path: str) -> None:
     file is left behind.
     """
     directory = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".trendmill-", suffix=".parquet.tmp", dir=directory)
-    os.close(fd)
+    tmp = os.path.join(directory, f".trendmill-{secrets.token_hex(8)}.parquet.tmp")
+    # created like any file (mode 0666 less the umask), not mkstemp's 0600
+    os.close(os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666))
     try:
         pq.write_table(table, tmp)
         os.replace(tmp, path)
