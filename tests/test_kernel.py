@@ -176,3 +176,18 @@ def test_nan_weight_raises_but_null_weight_skips(tmp_path):
     bad = write_parquet(tmp_path / "bad.parquet", {"x": x, "y": y, "w": pa.array(weights, pa.float64())})
     with pytest.raises(DataError, match=r"weight: column 'w' has NaN values in .*bad\.parquet"):
         fit(bad, "y", "x", weight="w")
+
+
+def test_every_error_survives_the_trip_from_a_worker():
+    # scan workers send errors back pickled; each class must come back whole
+    import pickle
+
+    from trendmill.engine import errors as E
+    samples = [E.SpecError("x", "bad"), E.FilterError("oops", expression="a >"),
+               E.SchemaError("m", column="c", field="x"), E.DataError("d", column="w", path="p"),
+               E.CorruptSource("c", path="p"), E.SourceNotFound("n", path="q"),
+               E.LimitError("l", limit=3), E.TrendmillError("t")]
+    for err in samples:
+        back = pickle.loads(pickle.dumps(err))
+        assert type(back) is type(err) and str(back) == str(err)
+        assert back.details == err.details and back.__dict__ == err.__dict__

@@ -52,6 +52,18 @@ class TrendmillError(Exception):
         self.message = message
         self.details = {k: v for k, v in details.items() if v is not None}
 
+    def __reduce__(self):
+        # errors cross process boundaries (scan workers); subclasses' __init__
+        # signatures differ, so rebuild from the message and attributes instead
+        return (_rebuild, (type(self), self.message, self.__dict__))
+
+
+def _rebuild(cls: type, message: str, state: dict) -> TrendmillError:
+    err = cls.__new__(cls)
+    Exception.__init__(err, message)
+    err.__dict__.update(state)
+    return err
+
 
 class SpecError(TrendmillError):
     """A fit spec field is invalid. ``field`` names it (``x``, ``confidence``...)."""
