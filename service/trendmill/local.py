@@ -27,7 +27,8 @@ from .io.plan import FitPlan, plan_fit
 from .io.results import fits_table
 from .io.scan import PartitionMoments, ScanTask, scan_partition, scan_tasks
 
-__all__ = ["run_fit", "check_fit", "FitRun", "Progress", "merge_partitions", "solve_plan"]
+__all__ = ["run_fit", "check_fit", "FitRun", "Progress", "merge_partitions", "solve_plan",
+           "IN_PROCESS_ROWS"]
 
 
 @dataclass(frozen=True, slots=True)
@@ -106,6 +107,8 @@ def _default_workers() -> int:
 
 
 _POOLS: dict[int, ProcessPoolExecutor] = {}
+#: below this many rows (from the Parquet metadata) the default is to scan in-process
+IN_PROCESS_ROWS = 1_000_000
 
 
 def _pool(workers: int) -> ProcessPoolExecutor:
@@ -126,8 +129,8 @@ def run_fit(spec: FitSpec, *, workers: int | None = None,
     Parameters
     ----------
     workers : int, optional
-        Worker processes (default: one per core). 1, or a one-partition source,
-        scans in this process.
+        Worker processes (default: one per core, or none below ``IN_PROCESS_ROWS``
+        rows). 1, or a one-partition source, scans in this process.
     progress : callable, optional
         Called with a ``Progress`` after each merged partition.
     should_stop : callable, optional
@@ -135,7 +138,9 @@ def run_fit(spec: FitSpec, *, workers: int | None = None,
     """
     start = time.perf_counter()
     plan = plan_fit(spec)
-    workers = workers or _default_workers()
+    if workers is None:
+        # starting worker processes costs ~1 s: not worth it for a small source
+        workers = 1 if plan.rows < IN_PROCESS_ROWS else _default_workers()
     total = len(plan.partitions)
     merger = _Merger(plan)
     done = rows = nbytes = 0
