@@ -71,11 +71,12 @@ def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan, out: np.ndarray)
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks()
     if col.kind in ("float", "bool"):
-        if not pa.types.is_float64(arr.type):
+        if not pa.types.is_floating(arr.type):
             arr = arr.cast(pa.float64(), safe=False)
-        values = arr.to_numpy(zero_copy_only=False)      # nulls come out as NaN
+        # nulls come out as NaN; float32 widens exactly in the subtraction below
+        values = arr.to_numpy(zero_copy_only=False)
         if col.origin:
-            np.subtract(values, col.origin, out=out)
+            np.subtract(values, col.origin, out=out, dtype=np.float64)   # not in float32
         else:
             out[:] = values
         return
@@ -87,7 +88,8 @@ def _as_float(arr: pa.Array | pa.ChunkedArray, col: ColumnPlan, out: np.ndarray)
         if arr.null_count:
             out[arr.is_null().to_numpy(zero_copy_only=False)] = np.nan
         return
-    raw = raw_integers(arr)
+    # plain integers go to the kernel in their own width (no widening copy)
+    raw = arr if pa.types.is_integer(arr.type) else raw_integers(arr)
     if raw.null_count:
         raw = raw.fill_null(0)
     _kernel.ints_to_float(raw.to_numpy(zero_copy_only=False), col.origin, col.per_unit, out)
