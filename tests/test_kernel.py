@@ -191,3 +191,23 @@ def test_every_error_survives_the_trip_from_a_worker():
         back = pickle.loads(pickle.dumps(err))
         assert type(back) is type(err) and str(back) == str(err)
         assert back.details == err.details and back.__dict__ == err.__dict__
+
+
+@pytest.mark.parametrize("d", range(2, 9))
+def test_written_out_pass_matches_the_general_loop(d):
+    # the generated pass 2 (sums in scalars, per column count) against the loop
+    # over a packed triangle it replaces: the same two-sum arithmetic, row for row
+    from trendmill.io import _unrolled
+    rng = np.random.default_rng(d)
+    n, used = 3_000, 7
+    member = np.sort(rng.integers(-1, used, n))          # runs, and skipped rows (-1)
+    member = np.where(rng.random(n) < 0.1, -1, member)
+    z = rng.normal(size=(d, n)) * 10.0 ** rng.integers(-3, 4, (d, 1))
+    w = rng.uniform(0.5, 2.0, n)
+    mean = rng.normal(size=(used, d))
+    for use_w in (False, True):
+        want = _kernel._centred_sums(member, z, w, use_w, mean, used)
+        got = _unrolled.centred_sums(d)(member, z, w, use_w, mean, used)
+        for g_arr, w_arr in zip(got, want):
+            np.testing.assert_array_equal(g_arr, w_arr, err_msg=f"d={d} use_w={use_w}")
+    assert _unrolled.centred_sums(_unrolled.MAX_UNROLLED + 1) is None

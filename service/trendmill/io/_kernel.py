@@ -16,6 +16,8 @@ import math
 import numpy as np
 from numba import njit
 
+from . import _unrolled
+
 __all__ = ["accumulate_comoment", "accumulate_qr", "ints_to_float"]
 
 
@@ -180,72 +182,32 @@ def _add_exact(hi, lo, k, t, hv, lv):
     lo[k, t] += err + lv
 
 
-@njit(cache=True, nogil=True)
-def _centred_sums_2(member, z, w, use_w, mean, used):
-    """``_centred_sums`` for one feature (d = 2), with the run's sums in scalars.
-
-    The common p = 1 trend fit; scalar locals stay in registers, which the
-    general loop over a packed triangle does not allow.
-    """
-    n = z.shape[1]
-    hi = np.zeros((used, 3))
-    lo = np.zeros((used, 3))
-    e = np.zeros((used, 2))
-    h0 = h1 = h2 = l0 = l1 = l2 = e0 = e1 = 0.0
-    cur = -1
-    for i in range(n + 1):
-        k = member[i] if i < n else -2
-        if k == -1:
-            continue
-        if k != cur:
-            if cur >= 0:
-                _add_exact(hi, lo, cur, 0, h0, l0)
-                _add_exact(hi, lo, cur, 1, h1, l1)
-                _add_exact(hi, lo, cur, 2, h2, l2)
-                e[cur, 0] += e0
-                e[cur, 1] += e1
-                h0 = h1 = h2 = l0 = l1 = l2 = e0 = e1 = 0.0
-            cur = k
-            if k < 0:
-                break
-        wi = w[i] if use_w else 1.0
-        r0 = z[0, i] - mean[k, 0]
-        r1 = z[1, i] - mean[k, 1]
-        wr0 = wi * r0
-        e0 += wr0
-        e1 += wi * r1
-        h0, err = _two_sum(h0, wr0 * r0)
-        l0 += err
-        h1, err = _two_sum(h1, wr0 * r1)
-        l1 += err
-        h2, err = _two_sum(h2, wi * r1 * r1)
-        l2 += err
-    return hi, lo, e
-
-
-@njit(cache=True, nogil=True)
 def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipped, infinite, slot):
     """Merge one batch into the co-moment state (arrays updated in place).
 
     codes (n,) int64 group ids < len(n_tot); z (d, n) float64 (x..., y) with NaN for
     nulls; w (n,) weights (ignored unless use_w); slot (>= len(n_tot)) int64 all -1,
     left so. Returns the number of rows with a negative or infinite weight (the
-    caller raises).
+    caller raises). Three compiled passes: means, centred sums (written out for
+    small d, see ``_unrolled``), Chan's merge.
     """
-    d, n = z.shape
     member, group_of, cnt, wsum, mean, bad = _batch_means(codes, z, w, use_w, slot, skipped, infinite)
     if bad:
         return bad
-    used = group_of.shape[0]
-    if d == 2:
-        hi, lo, e = _centred_sums_2(member, z, w, use_w, mean, used)
-    else:
-        hi, lo, e = _centred_sums(member, z, w, use_w, mean, used)
+    sums = _unrolled.centred_sums(z.shape[0]) or _centred_sums
+    hi, lo, e = sums(member, z, w, use_w, mean, group_of.shape[0])
+    _merge_batch(group_of, cnt, wsum, mean, hi, lo, e, n_tot, w_tot, mean_tot, c_tot)
+    return 0
+
+
+@njit(cache=True, nogil=True)
+def _merge_batch(group_of, cnt, wsum, mean, hi, lo, e, n_tot, w_tot, mean_tot, c_tot):
+    """Chan's update of each group's running state with the batch's, mean corrected by ``e``."""
+    d = mean.shape[1]
     delta = np.empty(d)
-    for k in range(used):
+    for k in range(group_of.shape[0]):
         g = group_of[k]
         wb = wsum[k]
-        # Chan's update with the batch mean corrected by the residual sums
         wt = w_tot[g] + wb
         fb = wb / wt
         f = w_tot[g] * fb
@@ -263,7 +225,6 @@ def accumulate_comoment(codes, z, w, use_w, n_tot, w_tot, mean_tot, c_tot, skipp
             mean_tot[g, a] += delta[a] * fb
         w_tot[g] = wt
         n_tot[g] += cnt[k]
-    return 0
 
 
 @njit(cache=True, nogil=True)
