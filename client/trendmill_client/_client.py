@@ -142,6 +142,11 @@ class Client:
         time.sleep(pause)
         return True
 
+    def _retry(self, exc: grpc.RpcError, attempt: int, deadline: float | None) -> bool:
+        """Whether to try again: UNAVAILABLE, and time left for another backoff (slept)."""
+        return exc.code() == grpc.StatusCode.UNAVAILABLE and \
+            self._sleep_before_retry(attempt, deadline)
+
     def _call(self, method, request, timeout: float | None):
         timeout = self.timeout if timeout is None else timeout
         deadline = time.monotonic() + timeout if timeout is not None else None
@@ -151,8 +156,7 @@ class Client:
             try:
                 return method(request, timeout=left, metadata=self._metadata)
             except grpc.RpcError as exc:
-                if exc.code() == grpc.StatusCode.UNAVAILABLE and \
-                        self._sleep_before_retry(attempt, deadline):
+                if self._retry(exc, attempt, deadline):
                     attempt += 1
                     continue
                 raise from_rpc_error(exc) from exc
@@ -238,8 +242,7 @@ class Client:
                     yield message
                 return
             except grpc.RpcError as exc:
-                if exc.code() == grpc.StatusCode.UNAVAILABLE and \
-                        self._sleep_before_retry(attempt, deadline):
+                if self._retry(exc, attempt, deadline):
                     attempt += 1
                     continue
                 raise from_rpc_error(exc) from exc

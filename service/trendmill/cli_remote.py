@@ -350,6 +350,14 @@ def _remote_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--tls-ca", metavar="F", help="CA certificate to trust (or $TRENDMILL_TLS_CA)")
 
 
+def _group_options(p) -> None:
+    """Server options plus the result and the key of one group (lookup, predict)."""
+    _remote_options(p)
+    p.add_argument("result", metavar="RESULT", help="model, models/{m}/versions/{n} or fitJobs/{id}")
+    p.add_argument("--key", action="append", default=[], metavar="VALUE",
+                   help="group key value, in --by order (repeat)")
+
+
 def add_commands(sub) -> None:
     """Register ``serve`` and the remote commands on the ``trendmill`` subparsers."""
     serve = sub.add_parser("serve", help="run the fit service (gRPC)")
@@ -389,18 +397,12 @@ def add_commands(sub) -> None:
     p.set_defaults(handler=_cmd_versions)
 
     p = sub.add_parser("lookup", help="show one group's fit")
-    _remote_options(p)
-    p.add_argument("result", metavar="RESULT", help="model, models/{m}/versions/{n} or fitJobs/{id}")
-    p.add_argument("--key", action="append", default=[], metavar="VALUE",
-                   help="group key value, in --by order (repeat)")
+    _group_options(p)
     p.add_argument("--json", action="store_true", help="one JSON object")
     p.set_defaults(handler=_cmd_lookup)
 
     p = sub.add_parser("predict", help="predict y for one group, with intervals")
-    _remote_options(p)
-    p.add_argument("result", metavar="RESULT", help="model, models/{m}/versions/{n} or fitJobs/{id}")
-    p.add_argument("--key", action="append", default=[], metavar="VALUE",
-                   help="group key value, in --by order (repeat)")
+    _group_options(p)
     p.add_argument("--at", action="append", required=True, metavar="X[,X...]",
                    help="x values of one point, in --x order (repeat for more points; "
                         "write --at=-1.5,2 when the first value is negative)")
